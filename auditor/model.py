@@ -1,0 +1,156 @@
+"""The normalized model of a project under audit.
+
+Loaders at the edge turn each input format into :class:`Analysis` objects; rules
+read only these. Nothing here knows which file format or sampler the data came
+from.
+
+Standard groups of ``Analysis.tree`` (arviz's InferenceData names): ``posterior``,
+``sample_stats``, ``warmup_posterior``, ``warmup_sample_stats``, ``log_likelihood``,
+``log_prior``, ``prior``, ``prior_predictive``, ``posterior_predictive``,
+``observed_data``, ``constant_data``. Every draws group has dimensions
+``(chain, draw, ...)``.
+
+Standard sampler statistics (``sample_stats``), whatever sampler wrote them:
+``lp``, ``acceptance_rate``, ``step_size``, ``tree_depth``, ``n_steps``,
+``diverging`` (bool), ``energy``, ``reached_max_treedepth`` (bool); see
+:mod:`auditor.loaders.stats_vocab`.
+"""
+
+from __future__ import annotations
+
+from dataclasses import dataclass, field
+from pathlib import Path
+from typing import Any
+
+import xarray as xr
+
+from auditor.findings import Finding
+from auditor.programs.summary import ProgramSummary
+
+
+@dataclass
+class SamplerSettings:
+    """How the draws were made, as far as the files say.
+
+    ``None`` means the files do not say. ``chain_ids`` and ``seeds`` follow the
+    chain order of the draws.
+    """
+
+    library: str | None = None
+    library_version: str | None = None
+    method: str | None = None
+    algorithm: str | None = None
+    engine: str | None = None
+    num_samples: int | None = None
+    num_warmup: int | None = None
+    save_warmup: bool | None = None
+    thin: int | None = None
+    adapt_engaged: bool | None = None
+    adapt_delta: float | None = None
+    max_depth: int | None = None
+    metric: str | None = None
+    chain_ids: list[int] = field(default_factory=list)
+    seeds: list[int] = field(default_factory=list)
+    model_name: str | None = None
+
+    def as_dict(self) -> dict[str, Any]:
+        """JSON-safe view with ``None`` values kept (they mean "not stated")."""
+        return {k: getattr(self, k) for k in self.__dataclass_fields__}
+
+
+@dataclass
+class AnalysisSpec:
+    """An analysis as declared in the configuration or found by discovery.
+
+    Paths are absolute. ``observed`` names the observed data variable;
+    ``plausible_range`` is the analyst's declared range of the outcome.
+    """
+
+    name: str
+    draws: list[Path]
+    model: Path | None = None
+    data: Path | None = None
+    observed: str | None = None
+    plausible_range: tuple[float, float] | None = None
+    declared: bool = False
+
+
+@dataclass
+class Analysis:
+    """One fitted analysis, normalized.
+
+    Parameters
+    ----------
+    name
+        Analysis name (from the manifest, or derived from the files).
+    tree
+        Draws and everything else as a DataTree with standard group names.
+    settings
+        Sampler settings.
+    sources
+        Absolute paths of the draws files, in chain order.
+    spec
+        The declaration or discovery record it came from.
+    program
+        What the model program says, when one was found and read.
+    data
+        Observed and constant data read from the data file, when there is one.
+    load_findings
+        Problems seen while loading (they become findings of the analysis).
+    """
+
+    name: str
+    tree: xr.DataTree | None
+    settings: SamplerSettings = field(default_factory=SamplerSettings)
+    sources: list[Path] = field(default_factory=list)
+    spec: AnalysisSpec | None = None
+    program: ProgramSummary | None = None
+    data: dict[str, Any] = field(default_factory=dict)
+    load_findings: list[Finding] = field(default_factory=list)
+
+    def group(self, name: str) -> xr.Dataset | None:
+        """Dataset of group ``name``, or ``None`` when absent or empty."""
+        if self.tree is None or name not in self.tree.children:
+            return None
+        ds = self.tree[name].to_dataset()
+        return ds if ds.data_vars else None
+
+    @property
+    def n_chains(self) -> int:
+        """Number of chains of the posterior (0 without a posterior or stats)."""
+        for g in ("posterior", "sample_stats"):
+            ds = self.group(g)
+            if ds is not None and "chain" in ds.sizes:
+                return int(ds.sizes["chain"])
+        return 0
+
+    @property
+    def n_draws(self) -> int:
+        """Kept draws per chain (0 without a posterior or stats)."""
+        for g in ("posterior", "sample_stats"):
+            ds = self.group(g)
+            if ds is not None and "draw" in ds.sizes:
+                return int(ds.sizes["draw"])
+        return 0
+
+
+@dataclass
+class Project:
+    """The project under audit: its root and its analyses.
+
+    ``findings`` holds project-level problems (configuration, discovery).
+    """
+
+    root: Path
+    analyses: list[Analysis] = field(default_factory=list)
+    findings: list[Finding] = field(default_factory=list)
+
+    def relpath(self, path: Path | str) -> str:
+        """``path`` relative to the project root with ``/`` separators.
+
+        Paths outside the root are given as they are (absolute)."""
+        p = Path(path).resolve()
+        try:
+            return p.relative_to(self.root.resolve()).as_posix()
+        except ValueError:
+            return p.as_posix()

@@ -1,0 +1,1 @@
+"""Readers of model programs (Stan, PyMC source) into one :class:`ProgramSummary`."""

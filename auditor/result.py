@@ -1,0 +1,127 @@
+"""The one result object every reporter formats.
+
+The exit status is decided here and nowhere else (:attr:`AuditResult.exit_status`).
+"""
+
+from __future__ import annotations
+
+from dataclasses import dataclass, field
+from typing import Any
+
+from auditor.findings import Finding, Severity
+
+CAUTION = (
+    "Passing this audit does not prove an analysis valid: it checks the files for "
+    "known warning signs only. A qualified statistician and the venue's own rules "
+    "decide whether the analysis is sound."
+)
+
+#: Exit statuses of the command line.
+EXIT_CLEAN = 0
+EXIT_GATE = 1
+EXIT_NOTHING = 2
+
+GATES = ("error", "warning", "never")
+
+
+@dataclass
+class Figure:
+    """A figure a stage or rule made for the report.
+
+    ``svg`` is a complete, self-contained SVG document (no external references).
+    """
+
+    id: str
+    title: str
+    svg: str
+    caption: str = ""
+    rule_id: str | None = None
+    quantity: str | None = None
+
+
+@dataclass
+class AnalysisResult:
+    """Everything the audit says about one analysis."""
+
+    name: str
+    sources: list[str]
+    settings: dict[str, Any]
+    n_chains: int
+    n_draws: int
+    diagnostics: list[dict[str, Any]]
+    findings: list[Finding]
+    program: str | None = None
+    figures: list[Figure] = field(default_factory=list)
+
+    @property
+    def worst(self) -> Severity | None:
+        """Most severe finding level, ``None`` when there are no findings."""
+        if not self.findings:
+            return None
+        return max((f.severity for f in self.findings), key=lambda s: s.rank)
+
+    @property
+    def verdict(self) -> str:
+        """``fail`` (errors), ``review`` (warnings), ``pass`` (notes or nothing)."""
+        worst = self.worst
+        if worst is Severity.ERROR:
+            return "fail"
+        if worst is Severity.WARNING:
+            return "review"
+        return "pass"
+
+
+@dataclass
+class InputFile:
+    """An input file with its SHA-256, for the reproducibility record."""
+
+    path: str
+    sha256: str
+    size: int
+
+
+@dataclass
+class AuditResult:
+    """The whole audit: analyses, project-level findings, the gate and its outcome."""
+
+    tool: str
+    version: str
+    project_name: str
+    analyses: list[AnalysisResult]
+    project_findings: list[Finding]
+    gate: str
+    rules: list[Any]
+    inputs: list[InputFile] = field(default_factory=list)
+    config: dict[str, Any] = field(default_factory=dict)
+    libraries: dict[str, str] = field(default_factory=dict)
+    caution: str = CAUTION
+
+    @property
+    def all_findings(self) -> list[Finding]:
+        """Project findings, then each analysis's, in report order."""
+        out = sorted(self.project_findings, key=Finding.sort_key)
+        for a in self.analyses:
+            out.extend(a.findings)
+        return out
+
+    def counts(self) -> dict[str, int]:
+        """Number of findings per severity (all three keys always present)."""
+        c = {s.value: 0 for s in (Severity.ERROR, Severity.WARNING, Severity.NOTE)}
+        for f in self.all_findings:
+            c[f.severity.value] += 1
+        return c
+
+    @property
+    def gate_reached(self) -> bool:
+        """Whether some finding is at or above the gate level."""
+        if self.gate == "never":
+            return False
+        level = Severity(self.gate).rank
+        return any(f.severity.rank >= level for f in self.all_findings)
+
+    @property
+    def exit_status(self) -> int:
+        """0 clean, 1 a finding reaches the gate, 2 nothing could be audited."""
+        if not self.analyses:
+            return EXIT_NOTHING
+        return EXIT_GATE if self.gate_reached else EXIT_CLEAN

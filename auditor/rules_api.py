@@ -1,0 +1,88 @@
+"""What a rule folder provides and what its check receives.
+
+A rule lives in ``rules/<stage>/<name>/`` with ``rule.toml`` (metadata, rationale,
+fix, references, thresholds), ``check.py`` (``check(ctx) -> Iterable[Finding]``),
+optionally ``figures.py`` (``figures(ctx, findings) -> list[Figure]``), and
+``cases/good/`` and ``cases/bad/`` (small projects; see DEVELOPERS.md).
+"""
+
+from __future__ import annotations
+
+from collections.abc import Callable, Iterable
+from dataclasses import dataclass, field
+from pathlib import Path
+from typing import TYPE_CHECKING, Any
+
+from auditor.findings import Finding, Location, Severity
+
+if TYPE_CHECKING:
+    from auditor.diagnostics import DiagnosticsTable
+    from auditor.model import Analysis, Project
+    from auditor.result import Figure
+
+
+@dataclass
+class RuleMeta:
+    """A rule's metadata as read from its ``rule.toml``."""
+
+    id: str
+    title: str
+    stage: str
+    severity: Severity
+    summary: str
+    rationale: str
+    fix: str
+    references: list[str]
+    thresholds: dict[str, Any]
+    folder: Path
+    aliases: list[str] = field(default_factory=list)
+    check: Callable[[RuleContext], Iterable[Finding]] | None = None
+    figures: Callable[[RuleContext, list[Finding]], list[Figure]] | None = None
+
+
+@dataclass
+class RuleContext:
+    """What a check sees: one analysis, its diagnostics, the effective thresholds."""
+
+    rule: RuleMeta
+    analysis: Analysis
+    project: Project
+    thresholds: dict[str, Any]
+    severity: Severity
+    diagnostics: DiagnosticsTable
+    options: dict[str, Any] = field(default_factory=dict)
+
+    def finding(
+        self,
+        message: str,
+        evidence: dict[str, Any] | None = None,
+        *,
+        quantity: str | None = None,
+        location: Location | None = None,
+        severity: Severity | None = None,
+        fix: str | None = None,
+    ) -> Finding:
+        """Make a finding of this rule, filling id, stage, severity and fix.
+
+        Without ``location``, a finding points at the analysis's first draws file.
+        """
+        if location is None and self.analysis.sources:
+            location = Location(self.project.relpath(self.analysis.sources[0]))
+        return Finding(
+            rule_id=self.rule.id,
+            severity=severity or self.severity,
+            stage=self.rule.stage,
+            message=message,
+            evidence=evidence or {},
+            fix=fix or self.rule.fix,
+            location=location,
+            analysis=self.analysis.name,
+            quantity=quantity,
+        )
+
+    def program_location(self, line: int | None, column: int | None = None) -> Location | None:
+        """Location in the analysis's model program, or ``None`` without one."""
+        prog = self.analysis.program
+        if prog is None:
+            return None
+        return Location(self.project.relpath(prog.path), line, column)
