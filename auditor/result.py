@@ -52,6 +52,9 @@ class AnalysisResult:
     findings: list[Finding]
     program: str | None = None
     figures: list[Figure] = field(default_factory=list)
+    #: Source lines around each program finding, keyed ``"path:line"``:
+    #: ``[(line number, text), ...]`` (the program stage's "flagged line in context").
+    excerpts: dict[str, list[tuple[int, str]]] = field(default_factory=dict)
 
     @property
     def worst(self) -> Severity | None:
