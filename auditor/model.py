@@ -59,6 +59,21 @@ class SamplerSettings:
 
 
 @dataclass
+class InputProblem:
+    """A problem with an input file, seen while finding or loading it.
+
+    ``kind`` is ``unreadable`` (the file could not be used),
+    ``inconsistent-chains`` (chains of one run disagree), ``unpaired`` (a model
+    program without draws, or draws without their program) or ``note``.
+    """
+
+    kind: str
+    path: Path
+    message: str
+    line: int | None = None
+
+
+@dataclass
 class AnalysisSpec:
     """An analysis as declared in the configuration or found by discovery.
 
@@ -73,6 +88,9 @@ class AnalysisSpec:
     observed: str | None = None
     plausible_range: tuple[float, float] | None = None
     declared: bool = False
+    prior_draws: list[Path] = field(default_factory=list)
+    log_lik: str = "log_lik"
+    predictive: str = "y_rep"
 
 
 @dataclass
@@ -95,8 +113,9 @@ class Analysis:
         What the model program says, when one was found and read.
     data
         Observed and constant data read from the data file, when there is one.
-    load_findings
-        Problems seen while loading (they become findings of the analysis).
+    problems
+        Problems seen while finding and loading its files; the ``inputs.*``
+        rules turn them into findings.
     """
 
     name: str
@@ -106,7 +125,7 @@ class Analysis:
     spec: AnalysisSpec | None = None
     program: ProgramSummary | None = None
     data: dict[str, Any] = field(default_factory=dict)
-    load_findings: list[Finding] = field(default_factory=list)
+    problems: list[InputProblem] = field(default_factory=list)
 
     def group(self, name: str) -> xr.Dataset | None:
         """Dataset of group ``name``, or ``None`` when absent or empty."""

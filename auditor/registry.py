@@ -54,10 +54,17 @@ def load_rule(folder: Path) -> RuleMeta:
     if meta["stage"] not in STAGES:
         raise RuleDefinitionError(f"{meta_path}: unknown stage {meta['stage']!r}")
     module_name = "auditor_rule_" + expected_id.replace(".", "_").replace("-", "_")
-    check_mod = _load_module(folder / "check.py", module_name)
-    check = getattr(check_mod, "check", None)
-    if not callable(check):
-        raise RuleDefinitionError(f"{folder / 'check.py'}: no check(ctx) function")
+    check = None
+    if meta.get("emitted_by") == "engine":
+        # The engine itself raises these findings (configuration problems, a rule
+        # that crashed); the folder holds their metadata and cases only.
+        if (folder / "check.py").exists():
+            raise RuleDefinitionError(f"{folder}: an engine-emitted rule has no check.py")
+    else:
+        check_mod = _load_module(folder / "check.py", module_name)
+        check = getattr(check_mod, "check", None)
+        if not callable(check):
+            raise RuleDefinitionError(f"{folder / 'check.py'}: no check(ctx) function")
     figures = None
     if (folder / "figures.py").is_file():
         figures = getattr(_load_module(folder / "figures.py", module_name + "_figures"), "figures")

@@ -1,0 +1,133 @@
+"""Turn an :class:`AnalysisSpec` into a loaded, normalized :class:`Analysis`.
+
+This is the one place that calls the loaders and the program readers, and that
+arranges the draws into standard groups (pointwise log-likelihood, predictive
+draws, the prior run).
+"""
+
+from __future__ import annotations
+
+from pathlib import Path
+
+import numpy as np
+import xarray as xr
+
+from auditor.loaders import load_draws
+from auditor.model import Analysis, AnalysisSpec, InputProblem
+
+
+def _problems(items: list, kind_default: str = "unreadable") -> list[InputProblem]:
+    return [
+        InputProblem(getattr(p, "kind", kind_default), Path(p.path), p.message, p.line)
+        for p in items
+    ]
+
+
+def _move(tree: xr.DataTree, src: str, dst: str, names: dict[str, str]) -> xr.DataTree:
+    """Move variables ``names`` (old -> new name) from group ``src`` into ``dst``."""
+    if src not in tree.children:
+        return tree
+    ds = tree[src].to_dataset()
+    present = {old: new for old, new in names.items() if old in ds.data_vars}
+    if not present:
+        return tree
+    moved = ds[list(present)].rename(present)
+    groups = {name: tree[name].to_dataset() for name in tree.children}
+    groups[src] = ds.drop_vars(list(present))
+    if dst in groups:
+        groups[dst] = groups[dst].merge(moved)
+    else:
+        groups[dst] = moved
+    out = xr.DataTree.from_dict(groups)
+    out.attrs = dict(tree.attrs)
+    return out
+
+
+def _arrange_stan_groups(tree: xr.DataTree, spec: AnalysisSpec, prefix: str) -> xr.DataTree:
+    """Put ``log_lik`` and the predictive draws of CmdStan runs into their groups.
+
+    ``prefix`` is ``""`` for the posterior run and ``"prior"`` for the prior run.
+    """
+    target = spec.observed or spec.predictive
+    if prefix == "prior":
+        tree = _move(tree, "posterior", "prior_predictive", {spec.predictive: target})
+        groups = {
+            ("prior" if name == "posterior" else name): tree[name].to_dataset()
+            for name in tree.children
+            if name in ("posterior", "prior_predictive")
+        }
+        return xr.DataTree.from_dict(groups)
+    tree = _move(tree, "posterior", "log_likelihood", {spec.log_lik: target})
+    return _move(tree, "posterior", "posterior_predictive", {spec.predictive: target})
+
+
+def _data_from_tree(tree: xr.DataTree) -> dict[str, object]:
+    data: dict[str, object] = {}
+    for group in ("constant_data", "observed_data"):
+        if group in tree.children:
+            for name, da in tree[group].to_dataset().data_vars.items():
+                data[str(name)] = np.asarray(da.values)
+    return data
+
+
+def assemble(spec: AnalysisSpec) -> Analysis:
+    """Load every file of ``spec``; problems are recorded, never raised."""
+    analysis = Analysis(name=spec.name, tree=None, spec=spec)
+    if spec.draws:
+        missing = [p for p in spec.draws if not p.exists()]
+        for p in missing:
+            analysis.problems.append(InputProblem("unreadable", p, "draws file not found"))
+        present = [p for p in spec.draws if p.exists()]
+        if present:
+            loaded = load_draws(present)
+            analysis.settings = loaded.settings
+            analysis.sources = list(loaded.sources)
+            analysis.problems.extend(_problems(loaded.problems))
+            tree = loaded.tree
+            if tree is not None and present[0].suffix.lower() == ".csv":
+                tree = _arrange_stan_groups(tree, spec, "")
+            analysis.tree = tree
+    if spec.prior_draws:
+        loaded = load_draws([p for p in spec.prior_draws if p.exists()])
+        analysis.problems.extend(_problems(loaded.problems))
+        analysis.sources.extend(p for p in loaded.sources if p not in analysis.sources)
+        if loaded.tree is not None:
+            prior = _arrange_stan_groups(loaded.tree, spec, "prior")
+            groups = {n: analysis.tree[n].to_dataset() for n in analysis.tree.children} if (
+                analysis.tree is not None
+            ) else {}
+            groups.update({n: prior[n].to_dataset() for n in prior.children})
+            attrs = dict(analysis.tree.attrs) if analysis.tree is not None else {}
+            analysis.tree = xr.DataTree.from_dict(groups)
+            analysis.tree.attrs = attrs
+    if spec.data is not None:
+        if spec.data.is_file():
+            from auditor.loaders.stan_data import read_stan_data
+
+            values, problems = read_stan_data(spec.data)
+            analysis.data = dict(values)
+            analysis.problems.extend(_problems(problems))
+        else:
+            analysis.problems.append(InputProblem("unreadable", spec.data, "data file not found"))
+    elif analysis.tree is not None:
+        analysis.data = _data_from_tree(analysis.tree)
+    if spec.model is not None:
+        if spec.model.is_file():
+            from auditor.programs.read import read_program
+
+            analysis.program = read_program(spec.model)
+        else:
+            analysis.problems.append(
+                InputProblem("unreadable", spec.model, "model program not found")
+            )
+    if analysis.tree is not None and analysis.program is None and spec.model is None:
+        if analysis.sources and analysis.sources[0].suffix.lower() == ".csv":
+            where = analysis.settings.model_name or "this run"
+            analysis.problems.append(
+                InputProblem(
+                    "unpaired",
+                    analysis.sources[0],
+                    f"no Stan program found for {where}; program checks were not run",
+                )
+            )
+    return analysis

@@ -1,0 +1,49 @@
+"""Small helpers that several rule checks share (rules import this; it imports no rule)."""
+
+from __future__ import annotations
+
+from collections import defaultdict
+from collections.abc import Iterator
+
+import numpy as np
+
+from auditor.findings import Finding
+from auditor.rules_api import RuleContext
+
+
+def low_ess_findings(ctx: RuleContext, column: str, label: str) -> Iterator[Finding]:
+    """Findings for variables whose ``column`` ESS is below ``min_per_chain`` x chains."""
+    chains = max(ctx.analysis.n_chains, 1)
+    per_chain = float(ctx.thresholds["min_per_chain"])
+    limit = per_chain * chains
+    by_var = defaultdict(list)
+    for row in ctx.diagnostics.rows:
+        if not row["constant"] and row[column] is not None:
+            by_var[row["variable"]].append(row)
+    for var, rows in by_var.items():
+        bad = [r for r in rows if r[column] < limit]
+        if not bad:
+            continue
+        worst = min(bad, key=lambda r: r[column])
+        share = f"{len(bad)} of {len(rows)} elements of {var}" if len(rows) > 1 else var
+        yield ctx.finding(
+            f"{label} of {share} below {limit:g} ({per_chain:g} per chain x {chains} chains); "
+            f"lowest {worst['quantity']} = {worst[column]:.0f}",
+            evidence={
+                column: round(worst[column], 2),
+                "threshold": limit,
+                "per_chain": per_chain,
+                "chains": chains,
+                "flagged": len(bad),
+                "elements": len(rows),
+            },
+            quantity=worst["quantity"],
+        )
+
+
+def sample_stat(ctx: RuleContext, name: str) -> np.ndarray | None:
+    """Sampler statistic ``name`` as a (chain, draw) array, or ``None`` when absent."""
+    ds = ctx.analysis.group("sample_stats")
+    if ds is None or name not in ds.data_vars:
+        return None
+    return np.asarray(ds[name].transpose("chain", "draw", ...).values)
