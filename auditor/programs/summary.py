@@ -49,6 +49,9 @@ class Distribution:
     column: int = 1
     text: str = ""
     truncation: tuple[str | None, str | None] | None = None
+    #: File the statement is written in when that is an included file (Stan
+    #: ``#include``); empty for the program's own file. ``line`` is in that file.
+    path: str = ""
 
     def location_arg(self) -> Arg | None:
         """The location argument for location-scale families, else ``None``."""
@@ -128,6 +131,9 @@ class Declaration:
     priors: list[Distribution] = field(default_factory=list)
     location_of: list[str] = field(default_factory=list)
     scale_of: list[str] = field(default_factory=list)
+    #: File the declaration is written in when that is an included file (Stan
+    #: ``#include``); empty for the program's own file. ``line`` is in that file.
+    path: str = ""
 
 
 @dataclass
@@ -147,6 +153,9 @@ class Likelihood:
     variable: str
     distribution: Distribution
     data_used: list[str] = field(default_factory=list)
+    #: PyMC: source text of the ``observed=`` expression (empty for Stan, where
+    #: the observed values come from the data file).
+    observed: str = ""
 
 
 @dataclass

@@ -1,0 +1,171 @@
+"""Parse Stan program text into a lark syntax tree, with plain-words syntax errors.
+
+The grammar is ``stan.lark`` beside this module, parsed with LALR(1) and lark's
+contextual lexer (fast: a few milliseconds for a 200-line program). Every tree node
+keeps its line and column (``propagate_positions``).
+"""
+
+from __future__ import annotations
+
+from dataclasses import dataclass
+from functools import cache
+from pathlib import Path
+
+from lark import Lark, Token, Tree
+from lark.exceptions import UnexpectedCharacters, UnexpectedEOF, UnexpectedInput, UnexpectedToken
+
+_GRAMMAR = Path(__file__).with_name("stan.lark")
+
+#: What a regex terminal means, in words.
+_REGEX_WORDS = {
+    "IDENT": "a name",
+    "INT": "a number",
+    "REAL": "a number",
+    "IMAG": "a number",
+    "STRING": "a string",
+    "CONSTRAINT_KEY": "lower, upper, offset or multiplier",
+    "$END": "the end of the program",
+}
+
+_TYPE_WORDS = {
+    "int", "real", "complex", "vector", "row_vector", "matrix", "complex_vector",
+    "complex_row_vector", "complex_matrix", "simplex", "ordered", "positive_ordered",
+    "unit_vector", "sum_to_zero_vector", "sum_to_zero_matrix", "cholesky_factor_corr",
+    "cholesky_factor_cov", "corr_matrix", "cov_matrix", "column_stochastic_matrix",
+    "row_stochastic_matrix", "array", "tuple",
+}
+_STATEMENT_WORDS = {
+    "for", "while", "if", "break", "continue", "return", "print", "reject",
+    "fatal_error", "profile",
+}
+_BLOCK_WORDS = {"functions", "data", "transformed", "parameters", "model", "generated"}
+_EXPRESSION_STARTS = {"IDENT", "INT", "REAL", "IMAG", "(", "[", "{", "-", "+", "!", "target"}
+
+
+@dataclass
+class StanSyntaxError(Exception):
+    """A syntax error at a 1-based line and column of the parsed text."""
+
+    message: str
+    line: int
+    column: int
+
+    def __str__(self) -> str:
+        return f"{self.line}:{self.column}: {self.message}"
+
+
+@cache
+def _parser() -> Lark:
+    return Lark(
+        _GRAMMAR.read_text(encoding="utf-8"),
+        parser="lalr",
+        lexer="contextual",
+        propagate_positions=True,
+        maybe_placeholders=True,
+    )
+
+
+def parse_stan(text: str) -> Tree:
+    """Parse a whole Stan program.
+
+    Raises
+    ------
+    StanSyntaxError
+        With a message in plain words and the position of the offending token.
+    """
+    parser = _parser()
+    try:
+        return parser.parse(text)
+    except UnexpectedInput as exc:
+        raise _explain(exc, parser) from None
+
+
+def _explain(exc: UnexpectedInput, parser: Lark) -> StanSyntaxError:
+    if isinstance(exc, UnexpectedCharacters):
+        char = exc.char
+        what = "an unterminated string" if char == '"' else f"unexpected character {char!r}"
+        return StanSyntaxError(what, exc.line, exc.column)
+    if isinstance(exc, UnexpectedToken):
+        token = exc.token
+        # ``accepts`` re-runs the parser to list what is really allowed here;
+        # ``expected`` can be wider because LALR merges states.
+        try:
+            allowed = exc.accepts or exc.expected
+        except Exception:  # noqa: BLE001 - only a better message is at stake
+            allowed = exc.expected
+        expected = _describe_expected(allowed, parser)
+        if token.type == "$END":
+            line, column = _end_position(exc)
+            return StanSyntaxError(f"unexpected end of the program — expected {expected}",
+                                   line, column)
+        return StanSyntaxError(f"unexpected {_describe_token(token)} — expected {expected}",
+                               token.line or 1, token.column or 1)
+    if isinstance(exc, UnexpectedEOF):
+        expected = _describe_expected(set(exc.expected), parser)
+        return StanSyntaxError(f"unexpected end of the program — expected {expected}", 1, 1)
+    return StanSyntaxError(str(exc).splitlines()[0], exc.line or 1, exc.column or 1)
+
+
+def _end_position(exc: UnexpectedToken) -> tuple[int, int]:
+    # lark gives $END the position of the last token seen; point just after it.
+    token = exc.token
+    line = getattr(token, "end_line", None) or token.line or 1
+    column = getattr(token, "end_column", None) or token.column or 1
+    return int(line), int(column)
+
+
+def _describe_token(token: Token) -> str:
+    if token.type == "IDENT":
+        return f"name '{token.value}'"
+    if token.type in {"INT", "REAL", "IMAG"}:
+        return f"number {token.value}"
+    if token.type == "STRING":
+        return "string"
+    return f"token '{token.value}'"
+
+
+def _describe_expected(names: set[str] | frozenset[str], parser: Lark) -> str:
+    """Turn lark's expected terminal names into a short phrase."""
+    literal: dict[str, str] = {}
+    for term in parser.terminals:
+        if term.pattern.type == "str":
+            literal[term.name] = term.pattern.value
+    values = {literal.get(n, n) for n in names}
+    words: list[str] = []
+    if "IDENT" in values and ("INT" in values or "REAL" in values):
+        words.append("an expression")
+        values -= _EXPRESSION_STARTS
+    if values & _BLOCK_WORDS and "model" in values:
+        words.append("a program block (data, parameters, model ...)")
+        values -= _BLOCK_WORDS
+    if values & _STATEMENT_WORDS and "for" in values:
+        words.append("a statement")
+        values -= _STATEMENT_WORDS | {"target", "~", ";"}
+    if len(values & _TYPE_WORDS) > 3:
+        words.append("a type")
+        values -= _TYPE_WORDS
+    if "IDENT" in values and "an expression" not in words:
+        words.append("a name")
+        values.discard("IDENT")
+    if "lower" in values or "CONSTRAINT_KEY" in values:
+        values -= {"lower", "upper", "offset", "multiplier"}
+        values.add("CONSTRAINT_KEY")
+    if len(values & {"=", "+=", "-=", "*=", "/=", ".*=", "./=", "<-"}) > 1:
+        words.append("an assignment")
+        values -= {"=", "+=", "-=", "*=", "/=", ".*=", "./=", "<-"}
+    if len(values) > 8:
+        # Operators after a complete expression: naming all of them helps nobody.
+        ops = {v for v in values if not v.isalnum() and v not in {";", ")", "]", "}", ","}}
+        if len(ops) > 4:
+            words.append("an operator")
+            values -= ops
+    rest = sorted(values, key=lambda v: (v not in {";", ")", "]", "}", ","}, v))
+    for v in rest:
+        word = _REGEX_WORDS.get(v)
+        words.append(word if word else f"'{v}'")
+    words = list(dict.fromkeys(words))
+    if not words:
+        return "something else"
+    if len(words) == 1:
+        return words[0]
+    return ", ".join(words[:-1]) + " or " + words[-1]

@@ -1,0 +1,53 @@
+"""Read a Stan file into a :class:`ProgramSummary`, turning every failure into a finding."""
+
+from __future__ import annotations
+
+from pathlib import Path
+
+from auditor.programs.stan.includes import expand_includes
+from auditor.programs.stan.parser import StanSyntaxError, parse_stan
+from auditor.programs.stan.summarize import summarize
+from auditor.programs.summary import ProgramSummary, SyntaxProblem
+
+
+def read_stan(path: Path) -> ProgramSummary:
+    """Parse the Stan program at ``path``; never raises on bad input.
+
+    An unreadable file, a bad ``#include`` or a syntax error becomes a
+    :class:`SyntaxProblem` in ``syntax_errors`` naming the file and position.
+    """
+    try:
+        text = path.read_text(encoding="utf-8")
+    except UnicodeDecodeError:
+        return _unreadable(path, "the file is not UTF-8 text")
+    except OSError as exc:
+        return _unreadable(path, f"cannot read the file: {exc.strerror or exc}")
+    return read_stan_text(text, path)
+
+
+def read_stan_text(text: str, path: Path) -> ProgramSummary:
+    """Parse Stan program ``text`` as if read from ``path`` (includes resolve beside it)."""
+    summary = ProgramSummary(language="stan", path=str(path), source_lines=text.splitlines())
+    source = expand_includes(path, text)
+    summary.includes = list(source.includes)
+    for p in source.problems:
+        summary.syntax_errors.append(SyntaxProblem(p.message, p.line, p.column, p.path))
+    try:
+        tree = parse_stan(source.text)
+    except StanSyntaxError as exc:
+        file, line = source.origin(exc.line)
+        summary.syntax_errors.append(
+            SyntaxProblem(exc.message, line, exc.column, file or str(path)))
+        return summary
+    except RecursionError:
+        summary.syntax_errors.append(SyntaxProblem(
+            "the program is nested too deeply to parse", 1, 1, str(path)))
+        return summary
+    summarize(tree, source, summary)
+    return summary
+
+
+def _unreadable(path: Path, message: str) -> ProgramSummary:
+    summary = ProgramSummary(language="stan", path=str(path))
+    summary.syntax_errors.append(SyntaxProblem(message, 1, 1, str(path)))
+    return summary

@@ -1,0 +1,363 @@
+"""Turn a Stan syntax tree into a language-neutral :class:`ProgramSummary`.
+
+What counts as what follows the Stan Reference Manual: variables declared at the
+top of a block belong to that block ("Program Blocks"); ``y ~ f(theta)`` and
+``target += f_lpdf(y | theta)`` add the same log density up to a constant
+("Sampling statements" / "Log probability increment"); the left-hand side decides
+whether a statement is a prior (a parameter) or a likelihood (data).
+"""
+
+from __future__ import annotations
+
+import re
+
+from lark import Token, Tree
+
+from auditor.programs.stan.includes import ExpandedSource
+from auditor.programs.summary import (
+    LOCATION_SCALE_ARGS,
+    Arg,
+    Bound,
+    Declaration,
+    Distribution,
+    Likelihood,
+    ProgramSummary,
+    SyntaxProblem,
+)
+
+BLOCK_NAMES = {
+    "functions_block": "functions",
+    "data_block": "data",
+    "tdata_block": "transformed data",
+    "params_block": "parameters",
+    "tparams_block": "transformed parameters",
+    "model_block": "model",
+    "gq_block": "generated quantities",
+}
+BLOCK_ORDER = list(BLOCK_NAMES.values())
+DATA_BLOCKS = {"data", "transformed data"}
+PARAMETER_BLOCKS = {"parameters", "transformed parameters"}
+
+#: Suffixes of log density / mass functions (Reference Manual, "Probability functions").
+DENSITY_SUFFIXES = ("_lpdf", "_lpmf", "_lupdf", "_lupmf")
+#: Log cumulative distribution functions, used for censored data.
+CDF_SUFFIXES = ("_lcdf", "_lccdf")
+
+_SPACES = re.compile(r"\s+")
+
+
+class _Builder:
+    def __init__(self, source: ExpandedSource, summary: ProgramSummary) -> None:
+        self.src = source
+        self.summary = summary
+        self.main_path = summary.path
+        #: name -> names its assignments/initialisers refer to (locals, transformed).
+        self.assigned: dict[str, list[str]] = {}
+        #: (statement tree, kind) collected in order; resolved once all declarations are known.
+        self.statements: list[tuple[Tree, str]] = []
+
+    # ------------------------------------------------------------ positions & text
+    def position(self, node: Tree | Token) -> tuple[str, int, int]:
+        """(path or '' for the main file, line, column) in the file the user wrote."""
+        if isinstance(node, Token):
+            line, column = node.line or 1, node.column or 1
+        else:
+            line, column = node.meta.line, node.meta.column
+        path, own_line = self.src.origin(line)
+        return ("" if path == self.main_path else path), own_line, column
+
+    def text(self, node: Tree | Token | None) -> str:
+        if node is None:
+            return ""
+        if isinstance(node, Token):
+            return str(node.value)
+        if getattr(node.meta, "empty", True):
+            return ""
+        raw = self.src.text[node.meta.start_pos:node.meta.end_pos]
+        return _SPACES.sub(" ", raw).strip()
+
+    # ------------------------------------------------------------ program
+    def build(self, tree: Tree) -> None:
+        seen: dict[str, int] = {}
+        for block in tree.children:
+            if not isinstance(block, Tree):
+                continue
+            name = BLOCK_NAMES[block.data]
+            self.check_block_order(block, name, seen)
+            if name == "functions":
+                continue
+            for item in block.children:
+                # Model-block declarations are local variables (Reference Manual,
+                # "Program block: model"), not variables of the program.
+                if isinstance(item, Tree) and item.data == "var_decl" and name != "model":
+                    self.declare(item, name)
+                elif isinstance(item, Tree):
+                    self.walk_statement(item)
+        self.resolve_statements()
+        self.link_hierarchy()
+
+    def check_block_order(self, block: Tree, name: str, seen: dict[str, int]) -> None:
+        # Reference Manual, "Program block order": each block at most once, in this order.
+        rank = BLOCK_ORDER.index(name)
+        later = [b for b, r in seen.items() if r > rank]
+        if name in seen:
+            self.problem(block, f"the '{name}' block appears more than once")
+        elif later:
+            self.problem(block, f"the '{name}' block must come before the '{later[0]}' block")
+        seen[name] = rank
+
+    def problem(self, node: Tree | Token, message: str) -> None:
+        path, line, column = self.position(node)
+        self.summary.syntax_errors.append(
+            SyntaxProblem(message, line, column, path or self.main_path))
+
+    # ------------------------------------------------------------ declarations
+    def declare(self, decl: Tree, block: str) -> None:
+        type_node, name_tok, old_dims, init = decl.children
+        name = str(name_tok)
+        d = Declaration(name=name, block=block)
+        d.path, d.line, d.column = self.position(decl)
+        dims: list[str] = []
+        if old_dims is not None:
+            dims.extend(self.text(e) for e in old_dims.children[0].children)
+        self.describe_type(type_node, d, dims)
+        d.dims = tuple(dims)
+        if name in self.summary.declarations:
+            self.problem(name_tok, f"'{name}' is declared more than once")
+        else:
+            self.summary.declarations[name] = d
+        if init is not None:
+            self.assigned.setdefault(name, []).extend(names_in(init))
+
+    def describe_type(self, node: Tree, d: Declaration, dims: list[str]) -> None:
+        if node.data == "decl_type":
+            node = node.children[0]
+        if node.data == "array_type":
+            _, sizes, inner = node.children
+            dims.extend(self.text(e) for e in sizes.children)
+            self.describe_type(inner, d, dims)
+        elif node.data == "tuple_type":
+            d.type = "tuple"
+        elif node.data == "basic_type":
+            type_name, constraints, sizes = node.children
+            d.type = str(type_name.children[0])
+            if sizes is not None:
+                dims.extend(self.text(e) for e in sizes.children[0].children)
+            if constraints is not None:
+                for constraint in constraints.children:
+                    key, expr = constraint.children
+                    text = self.text(expr)
+                    if key == "lower":
+                        d.lower = Bound(text, literal_value(expr))
+                    elif key == "upper":
+                        d.upper = Bound(text, literal_value(expr))
+                    elif key == "offset":
+                        d.offset = text
+                    else:
+                        d.multiplier = text
+
+    # ------------------------------------------------------------ statements
+    def walk_statement(self, node: Tree) -> None:
+        kind = node.data
+        if kind == "var_decl":
+            # A local variable: remember what its initial value refers to.
+            _, name_tok, _, init = node.children
+            if init is not None:
+                self.assigned.setdefault(str(name_tok), []).extend(names_in(init))
+            return
+        if kind == "assign":
+            lhs, _, rhs = node.children
+            target = root_name(lhs)
+            if target is None or not is_lvalue(lhs):
+                self.problem(node, "the left side of an assignment must be a variable, "
+                                   "optionally indexed (like x or x[i, j])")
+            else:
+                self.assigned.setdefault(target, []).extend(names_in(rhs))
+            return
+        if kind == "expr_stmt":
+            expr = node.children[0]
+            if not (isinstance(expr, Tree) and expr.data in {"call", "cond_call"}):
+                self.problem(node, "an expression on its own is not a statement; only a "
+                                   "function call can stand alone (did you mean '=' or '~'?)")
+            return
+        if kind in {"tilde", "target_pe"}:
+            self.statements.append((node, kind))
+            return
+        for child in node.children:
+            if isinstance(child, Tree) and child.data not in _EXPRESSION_NODES:
+                self.walk_statement(child)
+
+    def resolve_statements(self) -> None:
+        for node, kind in self.statements:
+            if kind == "tilde":
+                lhs, family_tok, args, truncation = node.children
+                dist = self.distribution(
+                    node, str(family_tok), args.children if args is not None else [])
+                if truncation is not None:
+                    low, high = truncation.children
+                    dist.truncation = (self.text(low) or None, self.text(high) or None)
+                self.attach(lhs, dist, density=True)
+            else:
+                for call in density_calls(node.children[0]):
+                    fname = str(call.children[0])
+                    if call.data == "cond_call":
+                        lhs = call.children[1]
+                        rest = call.children[2].children if call.children[2] is not None else []
+                    else:
+                        args = call.children[1].children if call.children[1] is not None else []
+                        if not args:
+                            continue
+                        lhs, rest = args[0], args[1:]
+                    density = fname.endswith(DENSITY_SUFFIXES)
+                    family = strip_suffix(fname) if density else fname
+                    dist = self.distribution(call, family, rest)
+                    self.attach(lhs, dist, density=density)
+
+    def distribution(self, node: Tree, family: str, args: list) -> Distribution:
+        path, line, column = self.position(node)
+        return Distribution(
+            family=family,
+            args=[Arg(self.text(a), literal_value(a), tuple(names_in(a))) for a in args],
+            line=line,
+            column=column,
+            text=self.text(node),
+            path=path,
+        )
+
+    def attach(self, lhs: Tree, dist: Distribution, density: bool) -> None:
+        name = root_name(lhs)
+        decl = self.summary.declarations.get(name) if name else None
+        if decl is None:
+            return
+        if decl.block in PARAMETER_BLOCKS and density:
+            decl.priors.append(dist)
+        elif decl.block in DATA_BLOCKS:
+            used = self.data_reached([n for a in dist.args for n in a.names])
+            self.summary.likelihoods.append(Likelihood(decl.name, dist, used))
+
+    def data_reached(self, names: list[str]) -> list[str]:
+        """Data variables the names refer to, following local and transformed variables."""
+        found: list[str] = []
+        seen: set[str] = set()
+        todo = list(names)
+        while todo:
+            name = todo.pop(0)
+            if name in seen:
+                continue
+            seen.add(name)
+            decl = self.summary.declarations.get(name)
+            if decl is not None and decl.block in DATA_BLOCKS:
+                found.append(name)
+            elif decl is None or decl.block in {"transformed parameters",
+                                                "generated quantities"}:
+                todo.extend(self.assigned.get(name, []))
+        return found
+
+    def link_hierarchy(self) -> None:
+        params = {n for n, d in self.summary.declarations.items() if d.block in PARAMETER_BLOCKS}
+        for decl in self.summary.declarations.values():
+            for prior in decl.priors:
+                if prior.family not in LOCATION_SCALE_ARGS:
+                    continue
+                for arg, role in ((prior.location_arg(), "location_of"),
+                                  (prior.scale_arg(), "scale_of")):
+                    if arg is None:
+                        continue
+                    for ref in arg.names:
+                        if ref in params and ref != decl.name:
+                            roles = getattr(self.summary.declarations[ref], role)
+                            if decl.name not in roles:
+                                roles.append(decl.name)
+
+
+_EXPRESSION_NODES = {
+    "binop", "unop", "cond_expr", "indexed", "transpose", "tuple_index", "int_lit",
+    "real_lit", "imag_lit", "var", "call", "cond_call", "target_call", "paren",
+    "tuple_expr", "array_expr", "row_vector_expr", "expr_list", "printables",
+}
+
+
+def strip_suffix(name: str) -> str:
+    """Stan family name without its ``_lpdf``-style suffix."""
+    for suffix in DENSITY_SUFFIXES:
+        if name.endswith(suffix):
+            return name[: -len(suffix)]
+    return name
+
+
+def density_calls(expr: Tree | Token | None) -> list[Tree]:
+    """Calls of ``*_lpdf``/``*_lpmf``/``*_lupdf``/``*_lupmf``/``*_lcdf``/``*_lccdf`` in order."""
+    found: list[Tree] = []
+    if not isinstance(expr, Tree):
+        return found
+    if expr.data in {"call", "cond_call"}:
+        fname = str(expr.children[0])
+        if fname.endswith(DENSITY_SUFFIXES + CDF_SUFFIXES):
+            found.append(expr)
+            return found
+    for child in expr.children:
+        found.extend(density_calls(child))
+    return found
+
+
+def names_in(node: Tree | Token | None) -> list[str]:
+    """Variable names an expression refers to (not function names), first use first."""
+    out: list[str] = []
+
+    def visit(n: Tree | Token | None) -> None:
+        if not isinstance(n, Tree):
+            return
+        if n.data == "var":
+            out.append(str(n.children[0]))
+            return
+        children = n.children[1:] if n.data in {"call", "cond_call"} else n.children
+        for c in children:
+            visit(c)
+
+    visit(node)
+    return list(dict.fromkeys(out))
+
+
+def root_name(node: Tree | Token | None) -> str | None:
+    """The variable at the root of ``x``, ``x[i]``, ``x[i][j]``, ``x'`` or ``x.1``."""
+    while isinstance(node, Tree):
+        if node.data == "var":
+            return str(node.children[0])
+        if node.data in {"indexed", "transpose", "tuple_index", "paren"}:
+            node = node.children[0]
+        else:
+            return None
+    return None
+
+
+def is_lvalue(node: Tree | Token | None) -> bool:
+    """``x``, ``x[...]``, ``x.1`` and combinations (Reference Manual, "Assignment")."""
+    while isinstance(node, Tree):
+        if node.data == "var":
+            return True
+        if node.data in {"indexed", "tuple_index"}:
+            node = node.children[0]
+        else:
+            return False
+    return False
+
+
+def literal_value(node: Tree | Token | None) -> float | None:
+    """Numeric value of a literal, signed literal or parenthesised literal, else None."""
+    if not isinstance(node, Tree):
+        return None
+    if node.data in {"int_lit", "real_lit"}:
+        return float(node.children[0])
+    if node.data == "paren":
+        return literal_value(node.children[0])
+    if node.data == "unop" and str(node.children[0]) in {"-", "+"}:
+        inner = literal_value(node.children[1])
+        if inner is None:
+            return None
+        return -inner if str(node.children[0]) == "-" else inner
+    return None
+
+
+def summarize(tree: Tree, source: ExpandedSource, summary: ProgramSummary) -> None:
+    """Fill ``summary`` (declarations, priors, likelihoods, hierarchy) from ``tree``."""
+    _Builder(source, summary).build(tree)

@@ -1,0 +1,2 @@
+  int<lower=0> N;
+  vector[N] flow;
