@@ -72,6 +72,7 @@ class Config:
         return {
             "gate": self.gate,
             "report": list(self.report),
+            "out": self.out,
             "max_figures": self.max_figures,
             "max_table_rows": self.max_table_rows,
             "rules": {k: dict(sorted(v.items())) for k, v in sorted(self.rules.items())},

@@ -1,0 +1,92 @@
+"""The machine-readable JSON report.
+
+``format_version`` log (bump on every change of shape):
+
+1. First version: tool, project, gate, summary, caution, analyses with sources,
+   settings, diagnostics and findings; project-level findings; inputs with SHA-256.
+"""
+
+from __future__ import annotations
+
+import json
+import math
+from pathlib import Path
+from typing import Any
+
+from auditor.findings import Finding
+from auditor.result import AuditResult
+
+FORMAT = "json"
+FILENAME = "audit.json"
+FORMAT_VERSION = 1
+
+
+def _clean(value: Any) -> Any:
+    # JSON has no NaN or infinity; "not computable" is null.
+    if isinstance(value, float):
+        return value if math.isfinite(value) else None
+    if isinstance(value, dict):
+        return {str(k): _clean(v) for k, v in value.items()}
+    if isinstance(value, list | tuple):
+        return [_clean(v) for v in value]
+    if hasattr(value, "item") and callable(value.item):  # numpy scalar
+        return _clean(value.item())
+    return value
+
+
+def finding_dict(f: Finding) -> dict[str, Any]:
+    """JSON form of one finding (shared by reporters that embed findings)."""
+    loc = None
+    if f.location is not None:
+        loc = {"path": f.location.path, "line": f.location.line, "column": f.location.column}
+    return {
+        "rule": f.rule_id,
+        "severity": f.severity.value,
+        "stage": f.stage,
+        "analysis": f.analysis,
+        "quantity": f.quantity,
+        "message": f.message,
+        "evidence": _clean(f.evidence),
+        "fix": f.fix,
+        "location": loc,
+    }
+
+
+def to_dict(result: AuditResult) -> dict[str, Any]:
+    """The whole report as plain data, in a fixed order."""
+    return {
+        "format_version": FORMAT_VERSION,
+        "tool": {"name": result.tool, "version": result.version},
+        "project": result.project_name,
+        "gate": {"level": result.gate, "reached": result.gate_reached,
+                 "exit_status": result.exit_status},
+        "summary": {**result.counts(), "analyses": len(result.analyses)},
+        "caution": result.caution,
+        "project_findings": [finding_dict(f) for f in sorted(result.project_findings,
+                                                              key=Finding.sort_key)],
+        "analyses": [
+            {
+                "name": a.name,
+                "verdict": a.verdict,
+                "program": a.program,
+                "sources": a.sources,
+                "chains": a.n_chains,
+                "draws_per_chain": a.n_draws,
+                "settings": _clean(a.settings),
+                "diagnostics": _clean(a.diagnostics),
+                "findings": [finding_dict(f) for f in a.findings],
+            }
+            for a in result.analyses
+        ],
+        "inputs": [{"path": i.path, "sha256": i.sha256, "bytes": i.size} for i in result.inputs],
+        "config": _clean(result.config),
+        "libraries": dict(sorted(result.libraries.items())),
+    }
+
+
+def write(result: AuditResult, out_dir: Path) -> Path:
+    """Write ``audit.json`` into ``out_dir``; same result, same bytes."""
+    path = out_dir / FILENAME
+    text = json.dumps(to_dict(result), indent=2, ensure_ascii=False, allow_nan=False)
+    path.write_text(text + "\n", encoding="utf-8")
+    return path

@@ -1,0 +1,98 @@
+"""Terminal output: a verdict line per analysis, findings by stage, a count line, the caution.
+
+Colour is used only when the stream is a terminal and ``NO_COLOR`` is unset.
+"""
+
+from __future__ import annotations
+
+import os
+from collections import defaultdict
+from pathlib import Path
+from typing import TextIO
+
+from auditor.findings import STAGES, Finding
+from auditor.result import AuditResult
+
+_COLOURS = {"error": "31", "warning": "33", "note": "36", "fail": "31", "review": "33",
+            "pass": "32", "dim": "2", "bold": "1"}
+VERDICT_WORDS = {"fail": "FAIL", "review": "REVIEW", "pass": "PASS"}
+
+
+class _Painter:
+    def __init__(self, enabled: bool) -> None:
+        self.enabled = enabled
+
+    def __call__(self, text: str, style: str) -> str:
+        if not self.enabled:
+            return text
+        return f"\x1b[{_COLOURS[style]}m{text}\x1b[0m"
+
+
+def use_colour(stream: TextIO) -> bool:
+    """Colour only on a real terminal, and never when NO_COLOR is set."""
+    return bool(getattr(stream, "isatty", lambda: False)()) and "NO_COLOR" not in os.environ
+
+
+def _plural(n: int, word: str, many: str | None = None) -> str:
+    return f"{n} {word if n == 1 else (many or word + 's')}"
+
+
+def _counts_text(findings: list[Finding]) -> str:
+    c = defaultdict(int)
+    for f in findings:
+        c[f.severity.value] += 1
+    parts = [_plural(c[k], k) for k in ("error", "warning", "note") if c[k]]
+    return ", ".join(parts) if parts else "no findings"
+
+
+def _clip(text: str, width: int = 160) -> str:
+    # Keep hostile or huge strings from flooding the terminal; strip control characters.
+    text = "".join(ch if ch.isprintable() else "?" for ch in text)
+    return text if len(text) <= width else text[: width - 1] + "…"
+
+
+def render(result: AuditResult, colour: bool = False, written: list[Path] | None = None) -> str:
+    """The terminal report as one string."""
+    paint = _Painter(colour)
+    out: list[str] = []
+    out.append(paint(f"{result.tool} {result.version}", "bold")
+               + f" · project {_clip(result.project_name)} · "
+               + _plural(len(result.analyses), "analysis", "analyses"))
+    out.append("")
+    width = max((len(_clip(a.name, 40)) for a in result.analyses), default=8)
+    for a in result.analyses:
+        word = VERDICT_WORDS[a.verdict]
+        shape = f"{a.n_chains} x {a.n_draws} draws" if a.n_chains else "no draws"
+        out.append(
+            f"  {paint(word.ljust(6), a.verdict)}  {_clip(a.name, 40).ljust(width)}  "
+            f"{shape.ljust(18)}  {_counts_text(a.findings)}"
+        )
+    by_stage: dict[str, list[Finding]] = defaultdict(list)
+    for f in result.all_findings:
+        by_stage[f.stage].append(f)
+    for stage in sorted(by_stage, key=lambda s: STAGES.index(s) if s in STAGES else 99):
+        out.append("")
+        out.append(paint(stage, "bold"))
+        for f in sorted(by_stage[stage], key=Finding.sort_key):
+            where = ""
+            if f.location is not None:
+                where = f.location.path + (f":{f.location.line}" if f.location.line else "")
+            scope = f"[{_clip(f.analysis, 40)}] " if f.analysis else ""
+            out.append(f"  {paint(f.severity.value.ljust(7), f.severity.value)} {f.rule_id}  "
+                       f"{scope}{paint(_clip(where, 80), 'dim')}")
+            out.append(f"          {_clip(f.message, 400)}")
+            out.append(f"          fix: {_clip(f.fix, 300)}")
+    counts = result.counts()
+    out.append("")
+    gate = result.gate
+    reached = "reached" if result.gate_reached else "not reached"
+    out.append(
+        f"{_plural(counts['error'], 'error')}, {_plural(counts['warning'], 'warning')}, "
+        f"{_plural(counts['note'], 'note')} in "
+        + _plural(len(result.analyses), "analysis", "analyses")
+        + f"; gate '{gate}' {reached} (exit {result.exit_status})"
+    )
+    if written:
+        out.append("reports: " + ", ".join(str(p) for p in written))
+    out.append(paint("caution: " + result.caution, "dim"))
+    return "\n".join(out) + "\n"

@@ -1,0 +1,6 @@
+parameters {
+  real alpha;
+}
+model {
+  alpha ~ normal(0, 1);
+}

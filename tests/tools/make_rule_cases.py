@@ -1,0 +1,151 @@
+"""Regenerate the good/bad cases of the sampling and input rules (``rules/*/*/cases``).
+
+Run ``python -m tests.tools.make_rule_cases`` from the repository root. Every case
+is made from a fixed seed, so rerunning gives the same files. The pathologies are
+built with known mechanisms (stated beside each case); real-sampler behaviour is
+tested separately against files written by CmdStan and PyMC (tests/test_sampling_real.py).
+"""
+
+from __future__ import annotations
+
+import shutil
+from pathlib import Path
+
+import numpy as np
+
+from tests.tools.cmdstan_writer import write_run
+
+RULES = Path(__file__).resolve().parents[2] / "rules"
+ROOT = RULES / "sampling"
+CHAINS, DRAWS = 4, 200
+
+
+def _healthy_stats(rng: np.random.Generator, chains: int = CHAINS, draws: int = DRAWS) -> dict:
+    # Energy drawn independently each iteration: E-BFMI near 2 for white noise.
+    return {
+        "lp": rng.normal(-10, 1, (chains, draws)),
+        "accept_stat": rng.uniform(0.7, 1.0, (chains, draws)),
+        "stepsize": np.full((chains, draws), 0.5),
+        "treedepth": rng.integers(2, 4, (chains, draws)),
+        "n_leapfrog": np.full((chains, draws), 7),
+        "divergent": np.zeros((chains, draws)),
+        "energy": rng.normal(12, 2, (chains, draws)),
+    }
+
+
+def _ar1(rng: np.random.Generator, phi: float, shape: tuple[int, int]) -> np.ndarray:
+    # AR(1) with unit marginal variance: ESS = N (1 - phi) / (1 + phi) per chain.
+    x = np.empty(shape)
+    x[:, 0] = rng.normal(size=shape[0])
+    eps = rng.normal(scale=np.sqrt(1 - phi**2), size=shape)
+    for t in range(1, shape[1]):
+        x[:, t] = phi * x[:, t - 1] + eps[:, t]
+    return x
+
+
+def _case(rule: str, kind: str, params: dict, stats: dict, expect: str | None = None,
+          stage_dir: Path = ROOT, **kw) -> Path:
+    folder = stage_dir / rule / "cases" / kind
+    if folder.exists():
+        shutil.rmtree(folder)
+    write_run(folder, "fit", "case_model", params, stats, **kw)
+    if expect is not None:
+        (folder / "expect.toml").write_text(expect)
+    return folder
+
+
+def _input_cases(rng: np.random.Generator) -> None:
+    inputs = RULES / "inputs"
+    iid = {"alpha": rng.normal(size=(CHAINS, DRAWS))}
+    for rule in ("unreadable", "inconsistent-chains", "config", "unpaired", "model-syntax"):
+        _case(rule, "good", iid, _healthy_stats(rng), stage_dir=inputs)
+    good_program = "parameters {\n  real alpha;\n}\nmodel {\n  alpha ~ normal(0, 1);\n}\n"
+    for rule in ("unpaired", "model-syntax"):
+        # case_model is what stanc names the program case.stan.
+        (inputs / rule / "cases" / "good" / "case.stan").write_text(good_program)
+
+    # Unreadable: chain 2 loses a field in data row 10 (like a truncated write).
+    folder = _case("unreadable", "bad", iid, _healthy_stats(rng), stage_dir=inputs)
+    path = folder / "fit-2.csv"
+    lines = path.read_text().splitlines()
+    first = next(i for i, ln in enumerate(lines) if ln and not ln.startswith("#")) + 5
+    row = next(i for i in range(first, len(lines)) if not lines[i].startswith("#")) + 9
+    lines[row] = lines[row].rsplit(",", 1)[0]
+    path.write_text("\n".join(lines) + "\n")
+    (folder / "expect.toml").write_text(f'[[hit]]\npath = "fit-2.csv"\nline = {row + 1}\n')
+
+    # Inconsistent chains: chain 3 has 150 draws where the others have 200.
+    folder = _case("inconsistent-chains", "bad", iid, _healthy_stats(rng), stage_dir=inputs)
+    short = {"alpha": rng.normal(size=(1, 150))}
+    stats = {k: v[:1, :150] for k, v in _healthy_stats(rng).items()}
+    write_run(folder / "tmp", "fit", "case_model", short, stats)
+    (folder / "tmp" / "fit-1.csv").replace(folder / "fit-3.csv")
+    (folder / "tmp").rmdir()
+    (folder / "expect.toml").write_text('[[hit]]\npath = "fit-3.csv"\n')
+
+    # Config: a misspelt key in the manifest.
+    folder = _case("config", "bad", iid, _healthy_stats(rng), stage_dir=inputs)
+    (folder / "bayes-auditor.toml").write_text('gate = "error"\nmax_figure = 2\n')
+    (folder / "expect.toml").write_text('[[hit]]\npath = "bayes-auditor.toml"\n')
+    (inputs / "config" / "cases" / "good" / "bayes-auditor.toml").write_text(
+        'gate = "error"\nmax_figures = 2\n')
+
+    # Unpaired: a program whose draws are missing (no run says model = lonely_model).
+    folder = _case("unpaired", "bad", iid, _healthy_stats(rng), stage_dir=inputs)
+    (folder / "case.stan").write_text(good_program)
+    (folder / "lonely.stan").write_text(good_program)
+    (folder / "expect.toml").write_text('[[hit]]\npath = "lonely.stan"\n')
+
+    # Model syntax: a missing semicolon (the error shows at the next token, line 3).
+    folder = _case("model-syntax", "bad", iid, _healthy_stats(rng), stage_dir=inputs)
+    (folder / "case.stan").write_text(
+        "parameters {\n  real alpha\n}  // expect: inputs.model-syntax\n"
+        "model {\n  alpha ~ normal(0, 1);\n}\n")
+
+
+def main() -> None:
+    """Write every case."""
+    rng = np.random.default_rng(20261202)
+    iid = {"alpha": rng.normal(size=(CHAINS, DRAWS)), "beta": rng.normal(size=(CHAINS, DRAWS, 3))}
+    for rule in ("rhat", "ess-bulk", "ess-tail", "divergences", "ebfmi", "tree-depth",
+                 "chain-count", "constant"):
+        _case(rule, "good", iid, _healthy_stats(rng))
+
+    # R-hat: chain 4 of beta[2] sits one sd away from the others (a stuck chain).
+    shifted = {k: v.copy() for k, v in iid.items()}
+    shifted["beta"][3, :, 1] += 1.0
+    _case("rhat", "bad", shifted, _healthy_stats(rng),
+          '[[hit]]\nquantity = "beta[2]"\n')
+
+    # ESS: AR(1) with phi = 0.97 gives about 200 * 0.03 / 1.97 = 3 per chain.
+    sticky = {"alpha": _ar1(rng, 0.97, (CHAINS, DRAWS)), "beta": iid["beta"]}
+    _case("ess-bulk", "bad", sticky, _healthy_stats(rng), '[[hit]]\nquantity = "alpha"\n')
+    _case("ess-tail", "bad", sticky, _healthy_stats(rng), '[[hit]]\nquantity = "alpha"\n')
+
+    # Divergences: 9 transitions flagged divergent in chain 2.
+    stats = _healthy_stats(rng)
+    stats["divergent"][1, 50:59] = 1
+    _case("divergences", "bad", iid, stats, "[[hit]]\n")
+
+    # E-BFMI: energy as a slow random walk in chain 3 (tiny changes between iterations).
+    stats = _healthy_stats(rng)
+    stats["energy"][2] = 12 + np.cumsum(rng.normal(0, 0.2, DRAWS))
+    _case("ebfmi", "bad", iid, stats, "[[hit]]\n")
+
+    # Tree depth: a quarter of the transitions at max_depth = 6.
+    stats = _healthy_stats(rng)
+    stats["treedepth"][:, ::4] = 6
+    _case("tree-depth", "bad", iid, stats, "[[hit]]\n", max_depth=6)
+
+    # Chain count: two chains only.
+    two = {k: v[:2] for k, v in iid.items()}
+    _case("chain-count", "bad", two, _healthy_stats(rng, chains=2), "[[hit]]\n")
+
+    # Constant: an indicator passed through generated quantities.
+    const = dict(iid, flag=np.ones((CHAINS, DRAWS)))
+    _case("constant", "bad", const, _healthy_stats(rng), '[[hit]]\nquantity = "flag"\n')
+    _input_cases(rng)
+
+
+if __name__ == "__main__":
+    main()
