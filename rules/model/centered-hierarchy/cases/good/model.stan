@@ -1,0 +1,18 @@
+// Invented scenario: effect of a tasting event on sales at four fictional bakeries,
+// non-centered through Stan's affine transform.
+data {
+  int<lower=1> J;
+  vector[J] uplift;
+  vector<lower=0>[J] se;
+}
+parameters {
+  real mu;
+  real<lower=0> tau;
+  vector<offset=mu, multiplier=tau>[J] theta;
+}
+model {
+  mu ~ normal(0, 5);
+  tau ~ normal(0, 5);
+  theta ~ normal(mu, tau);
+  uplift ~ normal(theta, se);
+}
