@@ -77,10 +77,16 @@ def parse_stan(text: str) -> Tree:
     try:
         return parser.parse(text)
     except UnexpectedInput as exc:
-        raise _explain(exc, parser) from None
+        raise _explain(exc, parser, text) from None
 
 
-def _explain(exc: UnexpectedInput, parser: Lark) -> StanSyntaxError:
+def _explain(exc: UnexpectedInput, parser: Lark, text: str) -> StanSyntaxError:
+    pos = getattr(exc, "pos_in_stream", None)
+    if pos is None and isinstance(exc, UnexpectedToken):
+        pos = exc.token.start_pos
+    if pos is not None and text.startswith("/*", pos):
+        return StanSyntaxError("a comment opened with /* is never closed by */",
+                               exc.line or 1, exc.column or 1)
     if isinstance(exc, UnexpectedCharacters):
         char = exc.char
         what = "an unterminated string" if char == '"' else f"unexpected character {char!r}"
@@ -98,8 +104,15 @@ def _explain(exc: UnexpectedInput, parser: Lark) -> StanSyntaxError:
             line, column = _end_position(exc)
             return StanSyntaxError(f"unexpected end of the program — expected {expected}",
                                    line, column)
-        return StanSyntaxError(f"unexpected {_describe_token(token)} — expected {expected}",
-                               token.line or 1, token.column or 1)
+        message = f"unexpected {_describe_token(token)} — expected {expected}"
+        previous = (exc.token_history or [None])[-1]
+        if (expected.startswith("';'") and previous is not None and previous.end_line
+                and token.line and token.line > previous.end_line):
+            # A missing ';' is noticed on the next line; point at where it belongs.
+            return StanSyntaxError(
+                f"missing ';' after '{previous.value}' ({message})",
+                previous.end_line, previous.end_column)
+        return StanSyntaxError(message, token.line or 1, token.column or 1)
     if isinstance(exc, UnexpectedEOF):
         expected = _describe_expected(set(exc.expected), parser)
         return StanSyntaxError(f"unexpected end of the program — expected {expected}", 1, 1)

@@ -1,0 +1,6 @@
+data {
+  int N;
+}
+parameters {
+  real mu @ 2;
+}

@@ -1,0 +1,6 @@
+// Deliberate error: the model block comes before the data block.
+model {
+}
+data {
+  int N;
+}

@@ -1,0 +1,4 @@
+/* Deliberate error: this comment is never closed.
+data {
+  int N;
+}
