@@ -121,13 +121,13 @@ def assemble(spec: AnalysisSpec) -> Analysis:
                 InputProblem("unreadable", spec.model, "model program not found")
             )
     if analysis.tree is not None and analysis.program is None and spec.model is None:
-        if analysis.sources and analysis.sources[0].suffix.lower() == ".csv":
-            where = analysis.settings.model_name or "this run"
+        if analysis.sources:
+            first = analysis.sources[0]
+            if first.suffix.lower() == ".csv":
+                what = f"no Stan program found for {analysis.settings.model_name or 'this run'}"
+            else:
+                what = f"no PyMC source {first.stem}.py found beside {first.name}"
             analysis.problems.append(
-                InputProblem(
-                    "unpaired",
-                    analysis.sources[0],
-                    f"no Stan program found for {where}; program checks were not run",
-                )
+                InputProblem("unpaired", first, what + "; program checks were not run")
             )
     return analysis

@@ -96,10 +96,10 @@ def _input_cases(rng: np.random.Generator) -> None:
     (folder / "lonely.stan").write_text(good_program)
     (folder / "expect.toml").write_text('[[hit]]\npath = "lonely.stan"\n')
 
-    # Model syntax: a missing semicolon (the error shows at the next token, line 3).
+    # Model syntax: a missing semicolon, reported at the end of the line that lacks it.
     folder = _case("model-syntax", "bad", iid, _healthy_stats(rng), stage_dir=inputs)
     (folder / "case.stan").write_text(
-        "parameters {\n  real alpha\n}  // expect: inputs.model-syntax\n"
+        "parameters {\n  real alpha  // expect: inputs.model-syntax\n}\n"
         "model {\n  alpha ~ normal(0, 1);\n}\n")
 
 

@@ -1,6 +1,6 @@
 parameters {
-  real alpha
-}  // expect: inputs.model-syntax
+  real alpha  // expect: inputs.model-syntax
+}
 model {
   alpha ~ normal(0, 1);
 }
