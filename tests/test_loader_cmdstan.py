@@ -443,3 +443,74 @@ def test_speed_four_by_1000_by_500(tmp_path):
     assert loaded.problems == []
     assert loaded.tree["posterior"].to_dataset()["z"].shape == (4, 1000, 25, 20)
     assert elapsed < 5.0, f"loading took {elapsed:.1f} s"
+
+
+def test_same_file_twice_and_copied_chain(tmp_path):
+    good = _files("cmdstanpy-runset-good")
+    copy = tmp_path / "bern-5.csv"
+    copy.write_bytes(good[0].read_bytes())
+    loaded = load_draws([good[0], good[1], good[0], copy])
+    odd = _inconsistent(loaded.problems)
+    assert [p.path for p in odd] == [good[0], copy]
+    assert "given twice" in odd[0].message
+    assert "identical" in odd[1].message and "bern-1.csv" in odd[1].message
+    assert loaded.sources == [good[0], good[1]]
+
+
+def test_chains_reading_different_data_files_noted(tmp_path):
+    good = _files("cmdstanpy-runset-good")
+    h = read_cmdstan_header(good[1])
+    data_line = h.lines["data.file"]
+    lines = good[1].read_text().splitlines(keepends=True)
+    lines[data_line - 1] = "#   file = other.data.json\n"
+    edited = tmp_path / "bern-2.csv"
+    edited.write_text("".join(lines))
+    loaded = load_draws([good[0], edited])
+    assert [(p.kind, p.path, p.line) for p in loaded.problems] == [("note", edited, data_line)]
+    assert loaded.tree["posterior"].to_dataset().sizes["chain"] == 2
+
+
+# Headers below are written by hand after the layout of the real files above
+# (CmdStan guide, "Stan CSV file format"; method sections from memory).
+_OPTIMIZE = """# stan_version_major = 2
+# stan_version_minor = 32
+# stan_version_patch = 2
+# model = bernoulli_model
+# method = optimize
+#   optimize
+#     algorithm = lbfgs (Default)
+#     iter = 2000 (Default)
+# id = 1 (Default)
+lp__,theta
+-5.00402,0.200003
+"""
+
+_VARIATIONAL = """# stan_version_major = 2
+# stan_version_minor = 32
+# stan_version_patch = 2
+# model = bernoulli_model
+# method = variational
+#   variational
+#     algorithm = meanfield (Default)
+#     output_samples = 3
+lp__,log_p__,log_g__,theta
+0,0,0,0.25
+0,-6.9,-0.5,0.31
+0,-7.1,-0.9,0.12
+0,-6.8,-0.2,0.22
+"""
+
+
+def test_other_methods_load(tmp_path):
+    opt = tmp_path / "opt.csv"
+    opt.write_text(_OPTIMIZE)
+    loaded = load_draws([opt])
+    assert loaded.problems == []
+    assert loaded.settings.method == "optimize" and loaded.settings.algorithm == "lbfgs"
+    assert loaded.tree["posterior"].to_dataset()["theta"].values.tolist() == [[0.200003]]
+    vi = tmp_path / "vi.csv"
+    vi.write_text(_VARIATIONAL)
+    loaded = load_draws([vi])
+    # The first row of a variational output is the approximation's mean, not a draw.
+    assert loaded.tree["posterior"].to_dataset()["theta"].values.tolist() == [[0.31, 0.12, 0.22]]
+    assert set(loaded.tree["sample_stats"].to_dataset().data_vars) == {"lp", "log_p", "log_g"}

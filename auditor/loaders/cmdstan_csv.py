@@ -492,7 +492,70 @@ def _check_chains(chains: list[_Chain], problems: list[LoadProblem]) -> list[_Ch
                 )
             )
         kept = agree
+    kept = _drop_copies(kept, n_total, problems)
+    _note_data_files(kept, problems)
     return kept
+
+
+def _drop_copies(chains: list[_Chain], n_total: int, problems: list[LoadProblem]) -> list[_Chain]:
+    """Leave out a file given twice, or a chain whose draws equal another's.
+
+    Identical HMC chains mean a copied file or a repeated seed and chain id; kept,
+    they would make the chains look perfectly mixed.
+    """
+    seen_paths: dict[Path, _Chain] = {}
+    seen_draws: dict[bytes, _Chain] = {}
+    out: list[_Chain] = []
+    for c in chains:
+        path = c.header.path.resolve()
+        twin = seen_paths.get(path)
+        reason = None
+        if twin is not None:
+            reason = f"the same file is given twice (as {twin.header.path} too)"
+        elif not _is_fixed_param(c.header) and c.data.size:
+            key = c.data.tobytes()
+            twin = seen_draws.get(key)
+            if twin is not None:
+                reason = (
+                    f"its draws are identical to those of {twin.header.path.name} "
+                    "(a copied file, or the same seed and chain id)"
+                )
+            seen_draws.setdefault(key, c)
+        seen_paths.setdefault(path, c)
+        if reason is None:
+            out.append(c)
+            continue
+        problems.append(
+            LoadProblem(
+                c.header.path,
+                f"chain file {c.header.path.name}: {reason}; it is left out "
+                f"(of {n_total} files given)",
+                kind="inconsistent-chains",
+            )
+        )
+    return out
+
+
+def _note_data_files(chains: list[_Chain], problems: list[LoadProblem]) -> None:
+    """Chains of one run should have read one data file."""
+    def data_file(c: _Chain) -> str:
+        h = c.header
+        return h.settings.get("data.file") or h.settings.get("data") or ""
+
+    first = data_file(chains[0]) if chains else ""
+    for c in chains[1:]:
+        other = data_file(c)
+        if first and other and other != first:
+            h = c.header
+            problems.append(
+                LoadProblem(
+                    h.path,
+                    f"this chain read data file {other} but {chains[0].header.path.name} read "
+                    f"{first}; if the contents differ, the chains sample different posteriors",
+                    line=h.lines.get("data.file") or h.lines.get("data"),
+                    kind="note",
+                )
+            )
 
 
 # --------------------------------------------------------------------------- datasets
@@ -610,7 +673,7 @@ def _settings(chains: list[_Chain]) -> SamplerSettings:
         library="CmdStan",
         library_version=h.version,
         method=h.method,
-        algorithm="fixed_param" if fixed_param else h.find("algorithm", "sample"),
+        algorithm="fixed_param" if fixed_param else h.find("algorithm", h.method or "sample"),
         engine=engine,
         num_samples=_as_int(h.find("num_samples", "sample")),
         num_warmup=_as_int(h.find("num_warmup", "sample")),
