@@ -63,7 +63,7 @@ def expression(src: str) -> str:
     """Parse ``src`` as the initial value of a transformed-data variable."""
     tree = parse_stan(f"transformed data {{ real v = {src}; }}")
     decl = tree.children[0].children[0]
-    return sexpr(decl.children[3])
+    return sexpr(decl.children[1].children[2])
 
 
 # ------------------------------------------------------------------ whole programs
@@ -125,6 +125,11 @@ def test_declaration_types_bounds_and_dims() -> None:
     assert d["scales"].dims == ("2", "3") and d["scales"].lower.value == 0
     assert d["mean_moisture"].block == "transformed data"
     assert d["spread"].block == "transformed parameters"
+    # Reference Manual, "Declaring multiple variables at once": `real<lower=0> x, y;`.
+    assert d["width"].lower.value == 0 and d["height"].lower.value == 0
+    assert d["low"].block == d["high"].block == "transformed parameters"
+    # A distribution statement on a function of one parameter is about that parameter.
+    assert [p.family for p in d["spread_raw"].priors] == ["normal"]
     path = CORPUS / "declarations.stan"
     assert d["rho"].line == line_of(path, "[N] rho;")
     assert d["rho"].column == column_of(path, "vector<lower=-1")
@@ -280,7 +285,7 @@ def test_expression_forms_parse(src: str) -> None:
 
 def test_literal_kinds() -> None:
     tree = parse_stan("transformed data { real a = 1.5e2; real b = 7; complex c = 2i; }")
-    kinds = [d.children[3].data for d in tree.children[0].children]
+    kinds = [d.children[1].children[2].data for d in tree.children[0].children]
     assert kinds == ["real_lit", "int_lit", "imag_lit"]
 
 
@@ -397,3 +402,14 @@ def test_reading_never_changes_the_file(tmp_path: Path) -> None:
     before = copy.read_bytes()
     read_program(copy)
     assert copy.read_bytes() == before
+
+
+def test_censoring_terms_are_likelihoods_of_the_censoring_point() -> None:
+    # target += N * f_lccdf(U | ...) adds the log survival of the censored units
+    # (Stan User's Guide, "Censored data"); it is about data, not a prior.
+    path = CORPUS / "censoring.stan"
+    s = read_program(path)
+    liks = [(lik.variable, lik.distribution.family) for lik in s.likelihoods]
+    assert liks == [("hours", "lognormal"), ("U", "lognormal_lccdf")]
+    assert s.likelihoods[1].distribution.line == line_of(path, "lognormal_lccdf")
+    assert [p.family for p in s.declarations["mu"].priors] == ["normal"]

@@ -14,6 +14,7 @@ data {
   array[N, 2] int<lower=0> counts;
   real<lower=1e-3> tiny;
   real<upper=-1.5> negative_cap;
+  real<lower=0> width, height;            // several variables of one type
 }
 transformed data {
   real<lower=0> mean_moisture = mean(moisture);
@@ -38,8 +39,10 @@ parameters {
 }
 transformed parameters {
   real spread = spread_raw * sigma;
+  real low = level - 1, high = level + 1;
 }
 model {
   level ~ normal(10, 2.5);
   sigma ~ exponential(1);
+  log(spread_raw + 10) ~ normal(2, 1);
 }

@@ -106,7 +106,9 @@ def _explain(exc: UnexpectedInput, parser: Lark, text: str) -> StanSyntaxError:
                                    line, column)
         message = f"unexpected {_describe_token(token)} — expected {expected}"
         previous = (exc.token_history or [None])[-1]
-        if (expected.startswith("';'") and previous is not None and previous.end_line
+        semicolon_allowed = any(
+            t.name in allowed and t.pattern.value == ";" for t in parser.terminals)
+        if (semicolon_allowed and previous is not None and previous.end_line
                 and token.line and token.line > previous.end_line):
             # A missing ';' is noticed on the next line; point at where it belongs.
             return StanSyntaxError(

@@ -113,7 +113,12 @@ class _Builder:
 
     # ------------------------------------------------------------ declarations
     def declare(self, decl: Tree, block: str) -> None:
-        type_node, name_tok, old_dims, init = decl.children
+        type_node, *items = decl.children
+        for item in items:
+            self.declare_one(decl, type_node, item, block)
+
+    def declare_one(self, decl: Tree, type_node: Tree, item: Tree, block: str) -> None:
+        name_tok, old_dims, init = item.children
         name = str(name_tok)
         d = Declaration(name=name, block=block)
         d.path, d.line, d.column = self.position(decl)
@@ -161,9 +166,10 @@ class _Builder:
         kind = node.data
         if kind == "var_decl":
             # A local variable: remember what its initial value refers to.
-            _, name_tok, _, init = node.children
-            if init is not None:
-                self.assigned.setdefault(str(name_tok), []).extend(names_in(init))
+            for item in node.children[1:]:
+                name_tok, _, init = item.children
+                if init is not None:
+                    self.assigned.setdefault(str(name_tok), []).extend(names_in(init))
             return
         if kind == "assign":
             lhs, _, rhs = node.children
@@ -226,6 +232,11 @@ class _Builder:
 
     def attach(self, lhs: Tree, dist: Distribution, density: bool) -> None:
         name = root_name(lhs)
+        if name is None:
+            # `log(sigma) ~ ...` still states sigma's distribution (through a change of
+            # variables); attribute it when exactly one program variable is involved.
+            declared = [n for n in names_in(lhs) if n in self.summary.declarations]
+            name = declared[0] if len(declared) == 1 else None
         decl = self.summary.declarations.get(name) if name else None
         if decl is None:
             return
