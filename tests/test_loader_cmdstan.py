@@ -514,3 +514,19 @@ def test_other_methods_load(tmp_path):
     # The first row of a variational output is the approximation's mean, not a draw.
     assert loaded.tree["posterior"].to_dataset()["theta"].values.tolist() == [[0.31, 0.12, 0.22]]
     assert set(loaded.tree["sample_stats"].to_dataset().data_vars) == {"lp", "log_p", "log_g"}
+
+
+def test_bad_warmup_row_keeps_the_split(tmp_path):
+    real = _outputs() / "arviz-stan-test-data-warmup" / "cmdstanpy_eight_schools_warmup-1.csv"
+    _, rows, numbers = _raw(real)
+    lines = real.read_text().splitlines(keepends=True)
+    broken_line = numbers[3]  # the 4th warmup row
+    lines[broken_line - 1] = lines[broken_line - 1].rsplit(",", 1)[0] + "\n"
+    path = tmp_path / "warm.csv"
+    path.write_text("".join(lines))
+    loaded = load_draws([path])
+    assert [p.line for p in loaded.problems] == [broken_line]
+    assert loaded.tree["warmup_posterior"].to_dataset().sizes["draw"] == 499
+    post = loaded.tree["posterior"].to_dataset()
+    assert post.sizes["draw"] == 100
+    assert post["mu"].values[0, 0] == float(rows[500][7])  # column 8 is mu

@@ -268,8 +268,11 @@ def _is_fixed_param(h: CmdStanHeader) -> bool:
 
 def _parse_rows(
     header: CmdStanHeader, rows: list[str], numbers: list[int], problems: list[LoadProblem]
-) -> np.ndarray:
-    """Numbers of the data rows; rows with the wrong field count are left out."""
+) -> tuple[np.ndarray, np.ndarray]:
+    """Numbers of the data rows, and which rows were used.
+
+    Rows with the wrong field count are left out.
+    """
     path, n_cols = header.path, len(header.columns)
     counts = [text.count(",") + 1 for text in rows]
     bad_rows = [i for i, n in enumerate(counts) if n != n_cols]
@@ -283,7 +286,7 @@ def _parse_rows(
                 line=header.column_line,
             )
         )
-        return np.empty((0, n_cols))
+        return np.empty((0, n_cols)), np.zeros(len(rows), dtype=bool)
     for i in bad_rows[:_MAX_ROW_PROBLEMS]:
         problems.append(
             LoadProblem(
@@ -300,16 +303,17 @@ def _parse_rows(
                 f"{len(bad_rows)} rows in all have the wrong number of fields; all left out",
             )
         )
-    bad = set(bad_rows)
-    good = [t for i, t in enumerate(rows) if i not in bad]
-    good_numbers = [n for i, n in enumerate(numbers) if i not in bad]
+    used = np.ones(len(rows), dtype=bool)
+    used[bad_rows] = False
+    good = [t for t, u in zip(rows, used, strict=True) if u]
+    good_numbers = [n for n, u in zip(numbers, used, strict=True) if u]
     if not good:
-        return np.empty((0, n_cols))
+        return np.empty((0, n_cols)), used
     try:
         flat = np.array(",".join(good).split(","), dtype=float)
     except ValueError:
-        return _parse_rows_slowly(path, good, good_numbers, n_cols, problems)
-    return flat.reshape(len(good), n_cols)
+        return _parse_rows_slowly(path, good, good_numbers, n_cols, problems), used
+    return flat.reshape(len(good), n_cols), used
 
 
 def _parse_rows_slowly(
@@ -400,7 +404,7 @@ def _parse_file(path: Path, problems: list[LoadProblem]) -> _Chain | None:
             continue
         rows.append(line)
         numbers.append(number)
-    data = _parse_rows(header, rows, numbers, problems)
+    data, used = _parse_rows(header, rows, numbers, problems)
 
     fixed_param = _is_fixed_param(header)
     expected = _kept_and_warmup_expected(header, fixed_param) if header.method == "sample" else None
@@ -419,7 +423,8 @@ def _parse_file(path: Path, problems: list[LoadProblem]) -> _Chain | None:
                     line=line,
                 )
             )
-        n_warmup = min(warm, data.shape[0])
+        # Warmup rows are the first ``warm`` rows of the file, whichever were unusable.
+        n_warmup = int(used[:warm].sum())
     elif header.method == "variational" and data.shape[0] > 0:
         # The first row of a variational output is the mean of the approximation,
         # not a draw (CmdStan guide, "Variational inference" output; from memory).
