@@ -390,7 +390,8 @@ def test_other_file_types_are_refused(tmp_path):
     path.write_text("x")
     loaded = load_draws([path])
     assert loaded.tree is None and loaded.problems[0].path == path
-    assert load_draws([]).tree is None
+    empty = load_draws([])
+    assert empty.tree is None and empty.problems == []
 
 
 def test_read_cmdstan_header_both_layouts():
@@ -518,7 +519,7 @@ def test_other_methods_load(tmp_path):
 
 def test_bad_warmup_row_keeps_the_split(tmp_path):
     real = _outputs() / "arviz-stan-test-data-warmup" / "cmdstanpy_eight_schools_warmup-1.csv"
-    _, rows, numbers = _raw(real)
+    columns, rows, numbers = _raw(real)
     lines = real.read_text().splitlines(keepends=True)
     broken_line = numbers[3]  # the 4th warmup row
     lines[broken_line - 1] = lines[broken_line - 1].rsplit(",", 1)[0] + "\n"
@@ -529,4 +530,4 @@ def test_bad_warmup_row_keeps_the_split(tmp_path):
     assert loaded.tree["warmup_posterior"].to_dataset().sizes["draw"] == 499
     post = loaded.tree["posterior"].to_dataset()
     assert post.sizes["draw"] == 100
-    assert post["mu"].values[0, 0] == float(rows[500][7])  # column 8 is mu
+    assert post["mu"].values[0, 0] == float(rows[500][columns.index("mu")])

@@ -35,11 +35,13 @@ def load_draws(paths: Sequence[Path]) -> Loaded:
     Returns
     -------
     Loaded
-        The draws, settings, source files and every problem seen.
+        The draws, settings, source files and every problem seen (an empty
+        ``paths`` gives ``tree=None`` and no problems).
     """
     paths = [Path(p) for p in paths]
     if not paths:
-        return Loaded(tree=None, problems=[LoadProblem(Path("."), "no draws files were given")])
+        # Nothing to load is the caller's business, not a defect of any file.
+        return Loaded(tree=None)
     kinds = {_kind(p) for p in paths}
     if kinds == {"csv"}:
         return load_cmdstan_csv(paths)
