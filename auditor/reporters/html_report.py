@@ -1,0 +1,48 @@
+"""HTML report: one self-contained file (inline CSS and SVG, no script, fetches nothing).
+
+The page is rendered from ``templates/report.html.j2`` with jinja2 autoescaping
+on, from view objects only (:mod:`auditor.reporters.views`). A Content Security
+Policy in the page forbids scripts and every fetch, as a second line of defence.
+"""
+
+from __future__ import annotations
+
+from pathlib import Path
+
+import jinja2
+
+from auditor.paths import templates_dir
+from auditor.reporters.views import build_view, inline_code
+from auditor.result import AuditResult
+
+FORMAT = "html"
+FILENAME = "audit.html"
+TEMPLATE = "report.html.j2"
+
+
+def environment() -> jinja2.Environment:
+    """The jinja2 environment of the HTML and PDF reports (autoescape always on)."""
+    env = jinja2.Environment(
+        loader=jinja2.FileSystemLoader(str(templates_dir())),
+        autoescape=True,
+        undefined=jinja2.StrictUndefined,
+        keep_trailing_newline=True,
+    )
+    env.filters["code"] = inline_code
+    return env
+
+
+def render(result: AuditResult, *, print_mode: bool = False, page_size: str = "A4") -> str:
+    """The report as an HTML string; ``print_mode`` adds the print styles and opens details."""
+    view = build_view(result)
+    template = environment().get_template(TEMPLATE)
+    return template.render(v=view, print=print_mode, page_size=page_size,
+                           stage_order=list(view.stage_order))
+
+
+def write(result: AuditResult, out_dir: Path) -> Path:
+    """Write ``audit.html`` into ``out_dir`` and return its path."""
+    out_dir.mkdir(parents=True, exist_ok=True)
+    path = out_dir / FILENAME
+    path.write_text(render(result), encoding="utf-8", newline="\n")
+    return path

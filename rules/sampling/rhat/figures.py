@@ -1,0 +1,17 @@
+"""Trace and rank plots of the quantities with the highest R-hat (worst first)."""
+
+from __future__ import annotations
+
+from auditor.figures.sampling import flagged_traces
+
+
+def figures(ctx, findings):
+    """At most ``ctx.options["max_figures"]`` trace/rank figures, largest R-hat first."""
+    limit = float(ctx.thresholds.get("max_rhat", 1.01))
+    return flagged_traces(
+        ctx,
+        findings,
+        badness=lambda row: row["rhat"] if row.get("rhat") is not None else float("-inf"),
+        flagged=lambda row: not row["constant"] and row.get("rhat") is not None
+        and row["rhat"] > limit,
+    )
