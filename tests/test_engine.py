@@ -1,0 +1,64 @@
+"""Engine behaviour that no single rule case shows."""
+
+from __future__ import annotations
+
+import json
+import shutil
+from pathlib import Path
+
+from auditor import engine
+from auditor.engine import run_audit
+from auditor.registry import all_rules
+from auditor.reporters.json_report import write
+
+CASE = Path(__file__).resolve().parent.parent / "rules" / "sampling" / "divergences" / "cases" / "bad"
+
+
+def test_a_rule_that_raises_becomes_a_finding_and_the_audit_goes_on(monkeypatch, tmp_path):
+    rules = all_rules()
+    target = next(r for r in rules if r.id == "sampling.rhat")
+
+    def broken(ctx):
+        raise ValueError("odd shape")
+
+    patched = [r if r is not target else type(r)(**{**r.__dict__, "check": broken}) for r in rules]
+    monkeypatch.setattr(engine, "all_rules", lambda: patched)
+    result = run_audit([CASE])
+    failed = [f for f in result.all_findings if f.rule_id == "inputs.rule-failed"]
+    assert len(failed) == 1
+    assert "sampling.rhat" in failed[0].message and "odd shape" in failed[0].message
+    # Other rules still ran: the case's divergences are reported.
+    assert any(f.rule_id == "sampling.divergences" for f in result.all_findings)
+
+
+def test_json_report_is_byte_identical_and_has_no_absolute_paths(tmp_path):
+    project = tmp_path / "proj"
+    shutil.copytree(CASE, project)
+    a, b = tmp_path / "a", tmp_path / "b"
+    a.mkdir()
+    b.mkdir()
+    write(run_audit([project]), a)
+    write(run_audit([project]), b)
+    text = (a / "audit.json").read_text()
+    assert text == (b / "audit.json").read_text()
+    assert str(tmp_path) not in text
+    data = json.loads(text)
+    assert data["format_version"] == 1 and "statistician" in data["caution"]
+    (analysis,) = data["analyses"]
+    assert analysis["sources"] == [f"fit-{i}.csv" for i in range(1, 5)]
+    assert {"rhat", "ess_bulk", "ess_tail", "mcse_mean"} <= set(analysis["diagnostics"][0])
+    finding = analysis["findings"][0]
+    assert {"rule", "severity", "stage", "message", "evidence", "fix", "location"} <= set(finding)
+    assert data["inputs"][0]["sha256"] and data["gate"]["exit_status"] == 1
+
+
+def test_audit_never_writes_into_the_project_except_its_report(tmp_path):
+    from auditor.cli import main
+
+    project = tmp_path / "proj"
+    shutil.copytree(CASE, project)
+    before = {p: p.read_bytes() for p in project.rglob("*") if p.is_file()}
+    assert main(["audit", str(project)]) == 1
+    after = {p for p in project.rglob("*") if p.is_file()}
+    assert {p for p in after if p not in before} == {project / "audit-report" / "audit.json"}
+    assert all(p.read_bytes() == data for p, data in before.items())
