@@ -433,10 +433,15 @@ def test_support_bounds_from_data_and_unknown_bounds():
 
 def test_support_truncated_prior_narrows_support():
     # normal(0, 1) T[0, ] has support (0, inf): on an unbounded parameter the
-    # declaration is wider than the prior.
+    # declaration is wider than the prior. The cut is stated (a truncation), so,
+    # like uniform's ends, it is a warning.
     prog = program(decl("x", dist("normal", "0", "1", truncation=("0", None))))
     (f,) = run("priors.support-mismatch", prog)
-    assert f.evidence["prior_support"] == "(0, +inf)"
+    assert (f.evidence["prior_support"], f.severity) == ("(0, +inf)", Severity.WARNING)
+    # gamma T[, 10] on an unbounded parameter: the family itself excludes x < 0.
+    prog = program(decl("x", dist("gamma", "2", "1", truncation=(None, "10"))))
+    (f,) = run("priors.support-mismatch", prog)
+    assert (f.evidence["prior_support"], f.severity) == ("(0, 10)", Severity.ERROR)
     prog = program(decl("x", dist("normal", "0", "1", truncation=("0", None)), lower="0"))
     assert run("priors.support-mismatch", prog) == []
 

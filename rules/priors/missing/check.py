@@ -10,6 +10,10 @@ from auditor.rules_api import RuleContext
 # Constrained types whose implicit uniform prior is proper: their support is bounded
 # whatever the declared bounds (simplex, sphere, correlation matrices).
 _COMPACT_TYPES = {"simplex", "unit_vector", "corr_matrix", "cholesky_factor_corr"}
+#: Unbounded constrained types: their range is described by the type, not by bounds.
+_TYPE_RANGE = {"positive_ordered": "(0, +inf)", "cov_matrix": "the covariance matrices",
+               "cholesky_factor_cov": "the Cholesky factors of covariance matrices",
+               "sum_to_zero_vector": "the sum-to-zero vectors"}
 
 
 def _severity(ctx: RuleContext, computed: Severity) -> Severity:
@@ -33,6 +37,8 @@ def check(ctx: RuleContext) -> Iterable[Finding]:
         upper = decl.upper.text if decl.upper is not None else "+inf"
         if decl.type in _COMPACT_TYPES:
             support = f"the {decl.type} space"
+        elif decl.type in _TYPE_RANGE:
+            support = _TYPE_RANGE[decl.type]
         else:
             support = f"({lower}, {upper})"
         kind = "a proper uniform" if bounded else "an improper flat"

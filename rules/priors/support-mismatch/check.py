@@ -70,7 +70,10 @@ def _declared(decl: Declaration, data: dict[str, Any]) -> tuple[float | None, fl
     return lo, hi
 
 
-def _support(dist: Distribution, data: dict[str, Any]) -> tuple[float, float] | None:
+def _support(
+    dist: Distribution, data: dict[str, Any], truncated: bool = True
+) -> tuple[float, float] | None:
+    """Support of the prior, with its truncation when ``truncated``."""
     fam = dist.family
     if fam in _POSITIVE:
         lo, hi = 0.0, INF
@@ -86,7 +89,7 @@ def _support(dist: Distribution, data: dict[str, Any]) -> tuple[float, float] | 
         lo, hi = dist.args[0].value, INF
     else:
         return None  # multivariate or unknown support
-    if dist.truncation is not None:
+    if truncated and dist.truncation is not None:
         t_lo, t_hi = dist.truncation
         if t_lo:
             v = _literal(t_lo, data)
@@ -133,10 +136,19 @@ def check(ctx: RuleContext) -> Iterable[Finding]:
             declared = f"({_fmt(d_lo) if d_lo is not None else '?'}, " \
                        f"{_fmt(d_hi) if d_hi is not None else '?'})"
             prior = f"({_fmt(p_lo)}, {_fmt(p_hi)})"
-            if dist.family == "uniform" and dist.truncation is None:
+            natural = _support(dist, data, truncated=False)
+            cut_only = natural is not None and not (
+                (d_lo is not None and d_lo < natural[0])
+                or (d_hi is not None and d_hi > natural[1]))
+            if dist.family == "uniform" or cut_only:
+                # A stated cut (uniform's ends, a truncation T[a, b]) inside the declared
+                # range: the family itself would cover it.
                 sides = [s for s, on in (("lower", below), ("upper", above)) if on]
-                message = (f"`{decl.name}` is declared on {declared} but its uniform prior "
-                           f"covers only {prior}: the {' and '.join(sides)} cut is not stated "
+                what = "uniform prior" if dist.truncation is None else \
+                    f"truncated {dist.family} prior"
+                message = (f"`{decl.name}` is declared on {declared} but its {what} "
+                           f"covers only {prior}: the {' and '.join(sides)} "
+                           f"cut{'s are' if len(sides) > 1 else ' is'} not stated "
                            "in the declaration, so the sampler meets a hard wall.")
                 severity = Severity.WARNING
             elif dist.family in _POSITIVE and below and p_lo == 0.0:
