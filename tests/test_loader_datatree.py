@@ -91,6 +91,10 @@ def test_zarr_store(centered_eight, tmp_path):
     with h5py.File(centered_eight, "r") as f:
         mu = f["posterior/mu"][...]
     np.testing.assert_array_equal(loaded.tree["posterior"].to_dataset()["mu"].values, mu)
+    # A Zarr store is recognised by its metadata file too, whatever the folder name.
+    renamed = tmp_path / "fit_store"
+    store.rename(renamed)
+    assert load_draws([renamed]).problems == []
 
 
 def test_zarr_missing_package_is_a_problem(tmp_path, monkeypatch):
