@@ -13,7 +13,9 @@ import numpy as np
 import xarray as xr
 
 from auditor.loaders import load_draws
+from auditor.loaders.stan_data import read_stan_data
 from auditor.model import Analysis, AnalysisSpec, InputProblem
+from auditor.programs.read import read_program
 
 
 def _problems(items: list, kind_default: str = "unreadable") -> list[InputProblem]:
@@ -102,8 +104,6 @@ def assemble(spec: AnalysisSpec) -> Analysis:
             analysis.tree.attrs = attrs
     if spec.data is not None:
         if spec.data.is_file():
-            from auditor.loaders.stan_data import read_stan_data
-
             values, problems = read_stan_data(spec.data)
             analysis.data = dict(values)
             analysis.problems.extend(_problems(problems))
@@ -113,8 +113,6 @@ def assemble(spec: AnalysisSpec) -> Analysis:
         analysis.data = _data_from_tree(analysis.tree)
     if spec.model is not None:
         if spec.model.is_file():
-            from auditor.programs.read import read_program
-
             analysis.program = read_program(spec.model)
         else:
             analysis.problems.append(
