@@ -90,6 +90,9 @@ def assemble(spec: AnalysisSpec) -> Analysis:
                 tree = _arrange_stan_groups(tree, spec, "")
             analysis.tree = tree
     if spec.prior_draws:
+        for p in spec.prior_draws:
+            if not p.exists():
+                analysis.problems.append(InputProblem("unreadable", p, "prior draws file not found"))
         loaded = load_draws([p for p in spec.prior_draws if p.exists()])
         analysis.problems.extend(_problems(loaded.problems))
         analysis.sources.extend(p for p in loaded.sources if p not in analysis.sources)
