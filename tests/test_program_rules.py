@@ -360,6 +360,33 @@ def test_vague_logit_link_uses_unit_scale_on_real_data():
     assert run("priors.vague", prog, data=data) == []
 
 
+def test_vague_glm_exponential_and_lognormal():
+    # normal_id_glm(x, alpha, beta, sigma) is y ~ normal(alpha + x * beta, sigma)
+    # (Stan Functions Reference, GLM distributions).
+    y, x = [3.0, 5.0, 4.0, 6.0], [1.0, 2.0, 3.0, 4.0]
+    prog = program(decl("alpha", dist("normal", "0", "10")),
+                   decl("beta", dist("normal", "0", "1000", line=3)),
+                   decl("sigma", dist("exponential", "0.001", line=4), lower="0"),
+                   likelihoods=(lik("y", dist("normal_id_glm", "x", "alpha", "beta", "sigma")),))
+    found = {f.quantity: f for f in run("priors.vague", prog, data={"y": y, "x": x})}
+    assert set(found) == {"beta", "sigma"}
+    assert found["beta"].evidence["data_scale"] == pytest.approx(
+        statistics.stdev(y) / statistics.stdev(x))
+    # exponential(rate) has scale 1 / rate; sigma's data scale is sd(y).
+    assert found["sigma"].evidence["prior_scale"] == pytest.approx(1000.0)
+    assert found["sigma"].evidence["data_scale"] == pytest.approx(statistics.stdev(y))
+    # lognormal: the location and scale live on log(y).
+    logs = [1.0, 1.5, 2.5, 3.0]
+    pos = [float(np.exp(v)) for v in logs]
+    prog = program(decl("m", dist("normal", "0", "1000")),
+                   decl("s", dist("normal", "0", "1000"), lower="0"),
+                   likelihoods=(lik("y", dist("lognormal", "m", "s")),))
+    found = {f.quantity: f for f in run("priors.vague", prog, data={"y": pos})}
+    assert found["s"].evidence["data_scale"] == pytest.approx(statistics.stdev(logs))
+    assert found["m"].evidence["data_scale"] == pytest.approx(
+        max(statistics.mean(logs), statistics.stdev(logs)))
+
+
 def test_vague_ratio_threshold_is_configurable():
     y, x = [1.0, 2.0, 3.0], [1.0, 2.0, 3.0]
     prog = program(decl("b", dist("normal", "0", "50")),

@@ -40,11 +40,17 @@ _LINK_FAMILIES = {
 _MEAN_FAMILIES = {"bernoulli": 0, "binomial": 1, "poisson": 0, "neg_binomial_2": 0}
 _INVERSE_LINKS = {"inv_logit", "invlogit", "expit", "sigmoid", "exp", "Phi", "Phi_approx",
                   "inv_cloglog", "logistic"}
+#: GLM families: (x, alpha, beta, ...) arguments; True when on a link scale.
+_GLM_FAMILIES = {"normal_id_glm": False, "bernoulli_logit_glm": True, "poisson_log_glm": True,
+                 "neg_binomial_2_log_glm": True, "categorical_logit_glm": True}
 _OUTCOME_FAMILIES = {"normal", "student_t", "cauchy", "logistic", "double_exponential",
                      "skew_normal", "gumbel"}
 
 
 def _prior_scale(dist: Distribution) -> float | None:
+    if dist.family == "exponential" and dist.args:
+        rate = dist.args[0].value  # the scale (and mean) of exponential(rate) is 1 / rate
+        return 1.0 / rate if rate is not None and rate > 0 else None
     if dist.family in _SCALE_FAMILIES:
         arg = dist.scale_arg()
     elif dist.family in _HALF_SCALE and len(dist.args) > _HALF_SCALE[dist.family]:
@@ -151,6 +157,16 @@ def _linear_predictor(
 ) -> tuple[str | None, float, float, bool]:
     """(predictor text, outcome scale, outcome level, on a link scale) of one likelihood."""
     dist = lik.distribution
+    if dist.family in _GLM_FAMILIES and len(dist.args) >= 3:
+        # The GLM's linear predictor alpha + x * beta, written out for the term walk.
+        x, alpha, beta = (a.text for a in dist.args[:3])
+        text = f"({alpha}) + ({x}) * ({beta})"
+        if _GLM_FAMILIES[dist.family]:
+            return text, 1.0, 1.0, True
+        sd = _sd(y)
+        if sd is None:
+            return None, 0.0, 0.0, False
+        return text, sd, max(float(abs(np.nanmean(y))), sd), False
     if dist.family in _LINK_FAMILIES:
         idx = _LINK_FAMILIES[dist.family]
         text = dist.args[idx].text if len(dist.args) > idx else None
@@ -191,7 +207,10 @@ def _data_scales(ctx: RuleContext, prog: ProgramSummary) -> _Scales:
             continue
         outcome = lik.variable
         dist = lik.distribution
-        scale_arg = dist.scale_arg() if dist.family in _SCALE_FAMILIES else None
+        on_scale = dist.family in _SCALE_FAMILIES or dist.family == "lognormal"
+        scale_arg = dist.scale_arg() if on_scale else None
+        if dist.family == "normal_id_glm" and len(dist.args) >= 4:
+            scale_arg = dist.args[3]
         sigma_names = scale_arg.names if scale_arg is not None and not link else ()
         if len(sigma_names) == 1 and sigma_names[0] in params:
             scales.add(sigma_names[0], y_scale, f"sd({outcome})")
