@@ -92,7 +92,9 @@ def assemble(spec: AnalysisSpec) -> Analysis:
     if spec.prior_draws:
         for p in spec.prior_draws:
             if not p.exists():
-                analysis.problems.append(InputProblem("unreadable", p, "prior draws file not found"))
+                analysis.problems.append(
+                    InputProblem("unreadable", p, "prior draws file not found")
+                )
         loaded = load_draws([p for p in spec.prior_draws if p.exists()])
         analysis.problems.extend(_problems(loaded.problems))
         analysis.sources.extend(p for p in loaded.sources if p not in analysis.sources)

@@ -48,7 +48,8 @@ def _cmd_rules() -> int:
     width = max(len(r.id) for r in rules)
     stage_w = max(len(r.stage) for r in rules)
     for r in rules:
-        print(f"{r.id.ljust(width)}  {r.stage.ljust(stage_w)}  {r.severity.value.ljust(7)}  {r.title}")
+        severity = r.severity.value.ljust(7)
+        print(f"{r.id.ljust(width)}  {r.stage.ljust(stage_w)}  {severity}  {r.title}")
     return 0
 
 

@@ -130,7 +130,9 @@ def _expand(root: Path, patterns: Any, where: str) -> list[Path]:
     return found
 
 
-def _analysis_spec(root: Path, entry: Any, index: int, path: Path, warnings: list[str]) -> AnalysisSpec:
+def _analysis_spec(
+    root: Path, entry: Any, index: int, path: Path, warnings: list[str]
+) -> AnalysisSpec:
     where = f"{path}: [[analysis]] #{index + 1}"
     if not isinstance(entry, dict):
         raise ConfigError(f"{where}: must be a table")
@@ -187,11 +189,15 @@ def _apply(cfg: Config, table: dict[str, Any], origin: str) -> None:
             continue
         if key == "gate":
             if value not in GATES:
-                raise ConfigError(f"{origin}: gate must be one of {', '.join(GATES)}, not {value!r}")
+                raise ConfigError(
+                    f"{origin}: gate must be one of {', '.join(GATES)}, not {value!r}"
+                )
             cfg.gate = value
         elif key == "report":
             value = [value] if isinstance(value, str) else value
-            bad = [v for v in value if v not in REPORT_FORMATS] if isinstance(value, list) else [value]
+            if not isinstance(value, list):
+                value = [value]
+            bad = [v for v in value if v not in REPORT_FORMATS]
             if bad:
                 raise ConfigError(
                     f"{origin}: unknown report format {bad[0]!r}"

@@ -19,7 +19,9 @@ from auditor.loaders import read_cmdstan_header
 from auditor.model import AnalysisSpec, InputProblem
 
 #: Folders never searched: our own output, version control, environments.
-SKIP_DIRS = frozenset({"audit-report", ".git", ".hg", ".venv", "venv", "node_modules", "__pycache__"})
+SKIP_DIRS = frozenset(
+    {"audit-report", ".git", ".hg", ".venv", "venv", "node_modules", "__pycache__"}
+)
 _CHAIN_SUFFIX = re.compile(r"[-_.]?\d+$")
 
 
@@ -37,7 +39,9 @@ def _run_key(path: Path) -> tuple[Path, str]:
     return path.parent, _CHAIN_SUFFIX.sub("", path.stem)
 
 
-def discover(root: Path, files: list[Path] | None = None) -> tuple[list[AnalysisSpec], list[InputProblem]]:
+def discover(
+    root: Path, files: list[Path] | None = None
+) -> tuple[list[AnalysisSpec], list[InputProblem]]:
     """Analyses found under ``root`` (or among ``files`` when given).
 
     Returns the specs and problems about unpaired programs.

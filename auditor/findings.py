@@ -6,11 +6,11 @@ A finding is plain data; reporters format it and never change it.
 from __future__ import annotations
 
 from dataclasses import dataclass, field
-from enum import Enum
+from enum import StrEnum
 from typing import Any
 
 
-class Severity(str, Enum):
+class Severity(StrEnum):
     """Severity levels, named as in SARIF 2.1.0 (``error``, ``warning``, ``note``)."""
 
     ERROR = "error"

@@ -67,7 +67,7 @@ def load_rule(folder: Path) -> RuleMeta:
             raise RuleDefinitionError(f"{folder / 'check.py'}: no check(ctx) function")
     figures = None
     if (folder / "figures.py").is_file():
-        figures = getattr(_load_module(folder / "figures.py", module_name + "_figures"), "figures")
+        figures = _load_module(folder / "figures.py", module_name + "_figures").figures
     return RuleMeta(
         id=meta["id"],
         title=meta["title"],

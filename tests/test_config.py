@@ -6,12 +6,12 @@ from pathlib import Path
 
 import pytest
 
-from auditor.config import ConfigError, load_config
+from auditor.config import ConfigError, check_rule_options, load_config
 from auditor.engine import run_audit
 from auditor.registry import all_rules
-from auditor.config import check_rule_options
 
-CASE = Path(__file__).resolve().parent.parent / "rules" / "sampling" / "divergences" / "cases" / "bad"
+REPO = Path(__file__).resolve().parent.parent
+CASE = REPO / "rules" / "sampling" / "divergences" / "cases" / "bad"
 
 
 def _project(tmp_path: Path, toml: str, name: str = "bayes-auditor.toml") -> Path:

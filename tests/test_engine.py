@@ -11,7 +11,8 @@ from auditor.engine import run_audit
 from auditor.registry import all_rules
 from auditor.reporters.json_report import write
 
-CASE = Path(__file__).resolve().parent.parent / "rules" / "sampling" / "divergences" / "cases" / "bad"
+REPO = Path(__file__).resolve().parent.parent
+CASE = REPO / "rules" / "sampling" / "divergences" / "cases" / "bad"
 
 
 def test_a_rule_that_raises_becomes_a_finding_and_the_audit_goes_on(monkeypatch, tmp_path):

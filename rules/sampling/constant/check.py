@@ -17,7 +17,8 @@ def check(ctx):
         n = totals[var]
         what = f"{len(rows)} of {n} elements of {var} are" if n > 1 else f"{var} is"
         yield ctx.finding(
-            f"{what} constant across all draws (value {rows[0]['mean']:g}); R-hat and ESS are undefined",
+            f"{what} constant across all draws (value {rows[0]['mean']:g}); "
+            "R-hat and ESS are undefined",
             evidence={"constant": len(rows), "elements": n, "value": rows[0]["mean"]},
             quantity=rows[0]["quantity"],
         )
