@@ -171,3 +171,14 @@ def test_example_pymc_models_are_read(path: Path) -> None:
     s = read_program(path)
     assert s.syntax_errors == []
     assert s.parameters and s.likelihoods
+
+
+def test_damaged_sources_never_raise() -> None:
+    # Bad input must give a finding, never a traceback.
+    path = CORPUS / "aliases_and_families.py"
+    text = path.read_text()
+    for cut in range(0, len(text), 13):
+        for damaged in (text[:cut], text[:cut] + text[cut + 2:]):
+            summary = read_pymc_text(damaged, path)
+            for problem in summary.syntax_errors:
+                assert problem.line >= 1 and problem.column >= 1 and problem.message

@@ -421,3 +421,31 @@ def test_censoring_terms_are_likelihoods_of_the_censoring_point() -> None:
     assert liks == [("hours", "lognormal"), ("U", "lognormal_lccdf")]
     assert s.likelihoods[1].distribution.line == line_of(path, "lognormal_lccdf")
     assert [p.family for p in s.declarations["mu"].priors] == ["normal"]
+
+
+def test_include_with_trailing_comment_and_malformed_include(tmp_path: Path) -> None:
+    (tmp_path / "priors.stan").write_text("  mu ~ normal(0, 1);\n")
+    (tmp_path / "main.stan").write_text(
+        "parameters { real mu; }\nmodel {\n#include \"priors.stan\" // the priors\n}\n")
+    s = read_program(tmp_path / "main.stan")
+    assert s.syntax_errors == [] and s.declarations["mu"].priors[0].family == "normal"
+    (tmp_path / "bad.stan").write_text("model {\n  #include\n}\n")
+    (problem,) = read_program(tmp_path / "bad.stan").syntax_errors
+    assert (problem.line, problem.column) == (2, 3) and "names no file" in problem.message
+
+
+@pytest.mark.parametrize("path", [CORPUS / "expressions.stan", CORPUS / "functions.stan",
+                                  CORPUS / "tuples.stan"], ids=lambda p: p.name)
+def test_damaged_programs_never_raise(path: Path) -> None:
+    # Bad input must give a finding, never a traceback: cut the program short,
+    # drop characters or insert a stray one at many places.
+    from auditor.programs.stan import read_stan_text
+
+    text = path.read_text()
+    n_lines = len(text.splitlines()) + 1
+    for cut in range(0, len(text), 41):
+        for damaged in (text[:cut], text[:cut] + text[cut + 3:], text[:cut] + "(" + text[cut:]):
+            summary = read_stan_text(damaged, path)
+            for problem in summary.syntax_errors:
+                assert 1 <= problem.line <= n_lines and problem.column >= 1
+                assert problem.message and problem.path == str(path)

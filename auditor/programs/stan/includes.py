@@ -13,7 +13,10 @@ from dataclasses import dataclass, field
 from pathlib import Path
 
 #: ``#include "a.stan"``, ``#include <a.stan>`` or ``#include a.stan``, alone on its line.
-_INCLUDE = re.compile(r'^[ \t]*#include[ \t]+(?:"([^"]+)"|<([^>]+)>|(\S+))[ \t]*$')
+_INCLUDE = re.compile(
+    r'^[ \t]*#include[ \t]+(?:"([^"]+)"|<([^>]+)>|([^\s"<>]+))[ \t]*(?://.*|/\*.*\*/[ \t]*)?$')
+#: Any line that starts like an include, to report the ones we cannot read.
+_INCLUDE_START = re.compile(r"^[ \t]*#include\b")
 _MAX_DEPTH = 20
 
 
@@ -74,6 +77,12 @@ def _expand(
     for number, line in enumerate(own, start=1):
         match = _INCLUDE.match(line)
         if not match:
+            if _INCLUDE_START.match(line):
+                # Without this the line would pass as an old `#` comment, silently.
+                out.problems.append(IncludeProblem(
+                    "this #include line names no file; write #include \"file.stan\"",
+                    str(path), number, line.index("#") + 1))
+                line = ""
             lines.append(line)
             out.origins.append((str(path), number))
             continue
