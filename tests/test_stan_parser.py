@@ -356,6 +356,8 @@ ERRORS = CORPUS / "errors"
     ("bad_assignment.stan", "mu + 1 = 2;", 0, "left side of an assignment"),
     ("bad_include.stan", "#include", 0, "cannot find the included file 'no_such_part.stan'"),
     ("unterminated_comment.stan", "/*", 0, "never closed"),
+    ("tilde_outside_model.stan", "mu ~", 0, "only allowed in the model block"),
+    ("data_with_value.stan", "N = 3", 0, "'N' cannot be given a value in the 'data' block"),
 ])
 def test_syntax_errors_have_the_right_position(name: str, snippet: str, offset: int,
                                                words: str) -> None:

@@ -55,6 +55,7 @@ class _Builder:
         self.assigned: dict[str, list[str]] = {}
         #: (statement tree, kind) collected in order; resolved once all declarations are known.
         self.statements: list[tuple[Tree, str]] = []
+        self.block_name = ""
 
     # ------------------------------------------------------------ positions & text
     def position(self, node: Tree | Token) -> tuple[str, int, int]:
@@ -86,6 +87,7 @@ class _Builder:
             self.check_block_order(block, name, seen)
             if name == "functions":
                 continue
+            self.block_name = name
             for item in block.children:
                 # Model-block declarations are local variables (Reference Manual,
                 # "Program block: model"), not variables of the program.
@@ -132,6 +134,11 @@ class _Builder:
         else:
             self.summary.declarations[name] = d
         if init is not None:
+            if block in {"data", "parameters"}:
+                # Reference Manual, "Program blocks": data come from the data file
+                # and parameters from the sampler; neither block assigns values.
+                self.problem(name_tok, f"'{name}' cannot be given a value in the "
+                                       f"'{block}' block")
             self.assigned.setdefault(name, []).extend(names_in(init))
 
     def describe_type(self, node: Tree, d: Declaration, dims: list[str]) -> None:
@@ -187,6 +194,12 @@ class _Builder:
                                    "function call can stand alone (did you mean '=' or '~'?)")
             return
         if kind in {"tilde", "target_pe"}:
+            if self.block_name != "model":
+                # Reference Manual, "Program blocks": only the model block (and
+                # functions ending in _lp) may change the log density.
+                what = "a distribution statement (~)" if kind == "tilde" else "'target +='"
+                self.problem(node, f"{what} is only allowed in the model block, "
+                                   f"not in '{self.block_name}'")
             self.statements.append((node, kind))
             return
         for child in node.children:

@@ -1,0 +1,4 @@
+// Deliberate error: a data variable given a value.
+data {
+  int N = 3;
+}
