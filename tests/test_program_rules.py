@@ -221,6 +221,19 @@ def test_missing_ignores_pymc_and_broken_programs():
     assert run("priors.missing", None) == []
 
 
+def test_findings_point_into_included_files():
+    # A declaration or statement written in an #include'd file is reported there.
+    inc = REPO / "inc" / "priors.stanfunctions"
+    d = decl("alpha", line=3)
+    d.path = str(inc)
+    (f,) = run("priors.missing", program(d))
+    assert (f.location.path, f.location.line) == ("inc/priors.stanfunctions", 3)
+    prior = dist("normal", "0", "1000", line=7)
+    prior.path = str(inc)
+    (f,) = run("priors.vague", program(decl("b", prior)))
+    assert (f.location.path, f.location.line) == ("inc/priors.stanfunctions", 7)
+
+
 def test_missing_configured_severity_wins():
     found = run("priors.missing", program(decl("alpha")), severity="note")
     assert found[0].severity is Severity.NOTE
@@ -663,6 +676,17 @@ def test_stale_fit_pymc_transformed_names_are_ignored():
     prog = program(decl("sigma", dist("half_normal", "1"), lower="0"),
                    decl("mu_det", block="transformed parameters"), language="pymc")
     assert run("inputs.stale-fit", prog, tree=tree) == []
+
+
+def test_stale_fit_pymc_unseen_name_is_a_warning():
+    # A PyMC name built at run time is invisible to a reader that never runs the file.
+    tree = posterior_tree({"sigma": (), "beta_0": ()})
+    prog = program(decl("sigma", dist("half_normal", "1"), lower="0"), language="pymc")
+    (f,) = run("inputs.stale-fit", prog, tree=tree)
+    assert (f.quantity, f.severity) == ("beta_0", Severity.WARNING)
+    prog.language = "stan"
+    (f,) = run("inputs.stale-fit", prog, tree=tree)
+    assert f.severity is Severity.ERROR
 
 
 def test_stale_fit_needs_draws():

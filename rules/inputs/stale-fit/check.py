@@ -15,7 +15,7 @@ from typing import Any
 
 import numpy as np
 
-from auditor.findings import Finding
+from auditor.findings import Finding, Location, Severity
 from auditor.programs.summary import Declaration
 from auditor.rules_api import RuleContext
 
@@ -24,6 +24,13 @@ _SQUARE = {"cov_matrix", "corr_matrix", "cholesky_factor_corr"}
 #: Types whose draws shape cannot be told from the dims text alone.
 _UNSHAPED = {"cholesky_factor_cov", "complex", "complex_vector", "complex_row_vector",
              "complex_matrix", "tuple"}
+
+
+def _where(ctx: RuleContext, item: Any) -> Location | None:
+    """Place of a statement or declaration, in the included file it was written in."""
+    if getattr(item, "path", ""):
+        return Location(ctx.project.relpath(item.path), item.line, item.column)
+    return ctx.program_location(item.line, item.column)
 
 
 def _eval_size(text: str, data: dict[str, Any]) -> int | None:
@@ -86,16 +93,22 @@ def check(ctx: RuleContext) -> Iterable[Finding]:
     data = ctx.analysis.data
     declared = {d.name: d for d in prog.declarations.values() if d.block in _DRAWS_BLOCKS}
     draws_names = [str(n) for n in post.data_vars if not str(n).endswith("__")]
+    # A PyMC source may name variables at run time (f-strings, loops), which a reader
+    # that never runs it cannot see: an unseen name there is a warning, not proof.
+    unseen_severity = ctx.severity
+    if prog.language != "stan" and ctx.severity == ctx.rule.severity:
+        unseen_severity = Severity.WARNING
     findings = []
     for name in draws_names:
         if name in declared:
             continue
         findings.append(ctx.finding(
             f"The draws contain `{name}`, which the program does not declare as a parameter, "
-            "transformed parameter or generated quantity.",
+            "transformed parameter or generated quantity: the draws look like they came "
+            "from another version of the program.",
             evidence={"variable": name, "problem": "undeclared",
                       "draws_shape": "x".join(map(str, _shape(post[name]))) or "scalar"},
-            quantity=name, location=ctx.program_location(None)))
+            quantity=name, location=ctx.program_location(None), severity=unseen_severity))
     for decl in declared.values():
         expected = _expected_shape(decl, data)
         if decl.name not in post.data_vars:
@@ -103,9 +116,9 @@ def check(ctx: RuleContext) -> Iterable[Finding]:
             if decl.block == "parameters" and not empty:
                 findings.append(ctx.finding(
                     f"Parameter `{decl.name}` is declared in the program but absent from "
-                    "the draws.",
+                    "the draws, so they did not come from this program.",
                     evidence={"variable": decl.name, "problem": "missing"},
-                    quantity=decl.name, location=ctx.program_location(decl.line, decl.column)))
+                    quantity=decl.name, location=_where(ctx, decl)))
             continue
         got = _shape(post[decl.name])
         # A scalar stored as a length-1 vector (or the reverse) is a loader's choice.
@@ -115,10 +128,11 @@ def check(ctx: RuleContext) -> Iterable[Finding]:
         findings.append(ctx.finding(
             f"`{decl.name}` is declared with size [{dims}] = "
             f"{'x'.join(map(str, expected)) or 'scalar'} but the draws have shape "
-            f"{'x'.join(map(str, got)) or 'scalar'}.",
+            f"{'x'.join(map(str, got)) or 'scalar'}, so they did not come from this program "
+            "with this data.",
             evidence={"variable": decl.name, "problem": "shape",
                       "declared_dims": dims,
                       "declared_shape": "x".join(map(str, expected)) or "scalar",
                       "draws_shape": "x".join(map(str, got)) or "scalar"},
-            quantity=decl.name, location=ctx.program_location(decl.line, decl.column)))
+            quantity=decl.name, location=_where(ctx, decl)))
     return findings

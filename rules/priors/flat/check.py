@@ -3,12 +3,20 @@
 from __future__ import annotations
 
 from collections.abc import Iterable
+from typing import Any
 
-from auditor.findings import Finding, Severity
+from auditor.findings import Finding, Location, Severity
 from auditor.rules_api import RuleContext
 
 _PRIOR_BLOCKS = ("parameters", "transformed parameters")
 _IMPROPER = {"flat": "(-inf, +inf)", "half_flat": "(0, +inf)"}
+
+
+def _where(ctx: RuleContext, item: Any) -> Location | None:
+    """Place of a statement or declaration, in the included file it was written in."""
+    if getattr(item, "path", ""):
+        return Location(ctx.project.relpath(item.path), item.line, item.column)
+    return ctx.program_location(item.line, item.column)
 
 
 def _severity(ctx: RuleContext, computed: Severity) -> Severity:
@@ -27,7 +35,7 @@ def check(ctx: RuleContext) -> Iterable[Finding]:
         if decl.block not in _PRIOR_BLOCKS:
             continue
         for dist in decl.priors:
-            loc = ctx.program_location(dist.line, dist.column)
+            loc = _where(ctx, dist)
             if dist.family in _IMPROPER:
                 findings.append(
                     ctx.finding(

@@ -12,7 +12,7 @@ from typing import Any
 
 import numpy as np
 
-from auditor.findings import Finding, Severity
+from auditor.findings import Finding, Location, Severity
 from auditor.programs.summary import Bound, Declaration, Distribution
 from auditor.rules_api import RuleContext
 
@@ -32,6 +32,13 @@ _TYPE_SUPPORT = {"simplex": (0.0, 1.0), "unit_vector": (-1.0, 1.0),
                  "positive_ordered": (0.0, INF)}
 _SKIP_TYPES = {"cov_matrix", "corr_matrix", "cholesky_factor_corr", "cholesky_factor_cov",
                "complex", "tuple"}
+
+
+def _where(ctx: RuleContext, item: Any) -> Location | None:
+    """Place of a statement or declaration, in the included file it was written in."""
+    if getattr(item, "path", ""):
+        return Location(ctx.project.relpath(item.path), item.line, item.column)
+    return ctx.program_location(item.line, item.column)
 
 
 def _severity(ctx: RuleContext, computed: Severity) -> Severity:
@@ -166,7 +173,7 @@ def check(ctx: RuleContext) -> Iterable[Finding]:
                           "declared_lower": _finite(d_lo), "declared_upper": _finite(d_hi),
                           "prior_lower": _finite(p_lo), "prior_upper": _finite(p_hi)},
                 quantity=decl.name,
-                location=ctx.program_location(dist.line, dist.column),
+                location=_where(ctx, dist),
                 severity=_severity(ctx, severity),
             ))
     return findings
