@@ -328,6 +328,17 @@ def test_vague_wide_prior_on_data_in_large_units_is_fine():
     assert len(run("priors.vague", prog)) == 2
 
 
+def test_vague_factor_of_unknown_value_is_not_an_intercept():
+    # x_std is transformed data (not in the data file): beta * x_std has no known
+    # data scale, so beta falls back to the absolute limit instead of being taken
+    # for an intercept.
+    y = [2100.0, 2400.0, 2500.0, 2900.0]
+    prog = program(decl("beta", dist("normal", "0", "1000")),
+                   likelihoods=(lik("y", dist("normal", "beta * x_std", "20")),))
+    (f,) = run("priors.vague", prog, data={"y": y})
+    assert f.evidence["data_scale"] is None and f.evidence["max_scale"] == 100.0
+
+
 def test_vague_intercept_and_sigma_scales():
     # An intercept's scale is the larger of |mean(y)| and sd(y); sigma's is sd(y).
     y = [0.3, -0.2, 0.1, -0.4, 0.2]

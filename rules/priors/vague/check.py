@@ -229,8 +229,10 @@ def _data_scales(ctx: RuleContext, prog: ProgramSummary) -> _Scales:
             if factors is None:
                 continue
             names = [_base_name(f) for f in factors]
+            if any(n is None or (n not in params and n not in data) for n in names):
+                continue  # a factor of unknown value (transformed data, a local, a call)
             term_params = [n for n in names if n in params]
-            term_data = [n for n in names if n is not None and n not in params and n in data]
+            term_data = [n for n in names if n not in params]
             if len(term_params) != 1:
                 continue  # a product of parameters (tau * z) has no single data scale
             p = term_params[0]
