@@ -246,8 +246,27 @@ def test_user_defined_densities_and_lpmf_in_target() -> None:
     s = read_program(CORPUS / "functions.stan")
     families = [(lik.variable, lik.distribution.family) for lik in s.likelihoods]
     assert families == [("weight", "hive"), ("visits", "count"), ("visits", "count")]
-    # Statements inside function bodies refer to the function's arguments.
-    assert "z" in s.declarations and s.declarations["z"].priors == []
+    # `shrink_lp(z, 1.0)` runs `z ~ normal(0, tau)` with tau = 1.0 (Reference Manual,
+    # "Log probability access in functions": _lp functions add to target).
+    path = CORPUS / "functions.stan"
+    (prior,) = s.declarations["z"].priors
+    assert prior.family == "normal" and [a.value for a in prior.args] == [0.0, 1.0]
+    assert prior.line == line_of(path, "z ~ normal(0, tau);")
+
+
+def test_lp_function_arguments_carry_hierarchy(tmp_path: Path) -> None:
+    program = tmp_path / "lp.stan"
+    program.write_text(
+        "functions {\n"
+        "  void group_lp(vector a, real m, real s) { a ~ normal(m, s); }\n"
+        "}\n"
+        "parameters { real mu; real<lower=0> tau; vector[3] theta; }\n"
+        "model { mu ~ normal(0, 1); tau ~ normal(0, 1); group_lp(theta, mu, tau); }\n")
+    d = read_program(program).declarations
+    assert [a.names for a in d["theta"].priors[0].args] == [("mu",), ("tau",)]
+    assert d["mu"].location_of == ["theta"] and d["tau"].scale_of == ["theta"]
+    # The function's own names never leak into program variables.
+    assert "a" not in d and "m" not in d
 
 
 # ------------------------------------------------------------------ expressions

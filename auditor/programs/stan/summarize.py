@@ -56,6 +56,9 @@ class _Builder:
         #: (statement tree, kind) collected in order; resolved once all declarations are known.
         self.statements: list[tuple[Tree, str]] = []
         self.block_name = ""
+        #: `_lp` function name -> (argument names, its ~ / target += statements).
+        self.lp_functions: dict[str, tuple[list[str], list[tuple[Tree, str]]]] = {}
+        self.lp_calls: list[Tree] = []
 
     # ------------------------------------------------------------ positions & text
     def position(self, node: Tree | Token) -> tuple[str, int, int]:
@@ -86,6 +89,7 @@ class _Builder:
             name = BLOCK_NAMES[block.data]
             self.check_block_order(block, name, seen)
             if name == "functions":
+                self.collect_lp_functions(block)
                 continue
             self.block_name = name
             for item in block.children:
@@ -97,6 +101,18 @@ class _Builder:
                     self.walk_statement(item)
         self.resolve_statements()
         self.link_hierarchy()
+
+    def collect_lp_functions(self, block: Tree) -> None:
+        # A `_lp` function may hold the priors (Reference Manual, "Log probability
+        # access in functions"); its statements count where the function is called.
+        for fundef in block.children:
+            _, name_tok, fun_args, body = fundef.children
+            if not str(name_tok).endswith("_lp") or body.data != "fun_block":
+                continue
+            params = [str(arg.children[2]) for arg in fun_args.children] if fun_args else []
+            statements: list[tuple[Tree, str]] = []
+            _collect_density_statements(body, statements)
+            self.lp_functions[str(name_tok)] = (params, statements)
 
     def check_block_order(self, block: Tree, name: str, seen: dict[str, int]) -> None:
         # Reference Manual, "Program block order": each block at most once, in this order.
@@ -189,6 +205,9 @@ class _Builder:
             return
         if kind == "expr_stmt":
             expr = node.children[0]
+            if isinstance(expr, Tree) and expr.data == "call" and str(expr.children[0]) in (
+                    self.lp_functions):
+                self.lp_calls.append(expr)
             if not (isinstance(expr, Tree) and expr.data in {"call", "cond_call"}):
                 self.problem(node, "an expression on its own is not a statement; only a "
                                    "function call can stand alone (did you mean '=' or '~'?)")
@@ -208,40 +227,74 @@ class _Builder:
 
     def resolve_statements(self) -> None:
         for node, kind in self.statements:
-            if kind == "tilde":
-                lhs, family_tok, args, truncation = node.children
-                dist = self.distribution(
-                    node, str(family_tok), args.children if args is not None else [])
-                if truncation is not None:
-                    low, high = truncation.children
-                    dist.truncation = (self.text(low) or None, self.text(high) or None)
-                self.attach(lhs, dist, density=True)
-            else:
-                for call in density_calls(node.children[0]):
-                    fname = str(call.children[0])
-                    if call.data == "cond_call":
-                        lhs = call.children[1]
-                        rest = call.children[2].children if call.children[2] is not None else []
-                    else:
-                        args = call.children[1].children if call.children[1] is not None else []
-                        if not args:
-                            continue
-                        lhs, rest = args[0], args[1:]
-                    density = fname.endswith(DENSITY_SUFFIXES)
-                    family = strip_suffix(fname) if density else fname
-                    dist = self.distribution(call, family, rest)
-                    self.attach(lhs, dist, density=density)
+            self.resolve(node, kind, None)
+        for call in self.lp_calls:
+            params, statements = self.lp_functions[str(call.children[0])]
+            args = call.children[1].children if call.children[1] is not None else []
+            mapping = dict(zip(params, args, strict=False))
+            for node, kind in statements:
+                self.resolve(node, kind, mapping)
 
-    def distribution(self, node: Tree, family: str, args: list) -> Distribution:
+    def resolve(self, node: Tree, kind: str, mapping: dict[str, Tree] | None) -> None:
+        """Record one ``~`` or ``target +=`` statement.
+
+        ``mapping`` is None for program statements; inside a ``_lp`` function it maps
+        the function's argument names to the expressions of the call.
+        """
+        if kind == "tilde":
+            lhs, family_tok, args, truncation = node.children
+            dist = self.distribution(
+                node, str(family_tok), args.children if args is not None else [], mapping)
+            if truncation is not None:
+                low, high = truncation.children
+                dist.truncation = (self.text(low) or None, self.text(high) or None)
+            self.attach_mapped(lhs, dist, True, mapping)
+            return
+        for call in density_calls(node.children[0]):
+            fname = str(call.children[0])
+            if call.data == "cond_call":
+                lhs = call.children[1]
+                rest = call.children[2].children if call.children[2] is not None else []
+            else:
+                args = call.children[1].children if call.children[1] is not None else []
+                if not args:
+                    continue
+                lhs, rest = args[0], args[1:]
+            density = fname.endswith(DENSITY_SUFFIXES)
+            family = strip_suffix(fname) if density else fname
+            dist = self.distribution(call, family, rest, mapping)
+            self.attach_mapped(lhs, dist, density, mapping)
+
+    def attach_mapped(self, lhs: Tree, dist: Distribution, density: bool,
+                      mapping: dict[str, Tree] | None) -> None:
+        if mapping is None:
+            self.attach(lhs, dist, density)
+            return
+        # Inside a function only its arguments reach program variables.
+        root = root_name(lhs)
+        if root in mapping:
+            self.attach(mapping[root], dist, density)
+
+    def distribution(self, node: Tree, family: str, args: list,
+                     mapping: dict[str, Tree] | None = None) -> Distribution:
         path, line, column = self.position(node)
         return Distribution(
             family=family,
-            args=[Arg(self.text(a), literal_value(a), tuple(names_in(a))) for a in args],
+            args=[self.argument(a, mapping) for a in args],
             line=line,
             column=column,
             text=self.text(node),
             path=path,
         )
+
+    def argument(self, node: Tree, mapping: dict[str, Tree] | None) -> Arg:
+        if mapping is None:
+            return Arg(self.text(node), literal_value(node), tuple(names_in(node)))
+        if isinstance(node, Tree) and node.data == "var" and str(node.children[0]) in mapping:
+            given = mapping[str(node.children[0])]
+            return Arg(self.text(given), literal_value(given), tuple(names_in(given)))
+        names = [m for n in names_in(node) if n in mapping for m in names_in(mapping[n])]
+        return Arg(self.text(node), literal_value(node), tuple(dict.fromkeys(names)))
 
     def attach(self, lhs: Tree, dist: Distribution, density: bool) -> None:
         name = root_name(lhs)
@@ -299,6 +352,16 @@ _EXPRESSION_NODES = {
     "real_lit", "imag_lit", "var", "call", "cond_call", "target_call", "paren",
     "tuple_expr", "array_expr", "row_vector_expr", "expr_list", "printables",
 }
+
+
+def _collect_density_statements(node: Tree, out: list[tuple[Tree, str]]) -> None:
+    for child in node.children:
+        if not isinstance(child, Tree) or child.data in _EXPRESSION_NODES:
+            continue
+        if child.data in {"tilde", "target_pe"}:
+            out.append((child, child.data))
+        else:
+            _collect_density_statements(child, out)
 
 
 def strip_suffix(name: str) -> str:
