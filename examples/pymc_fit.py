@@ -88,9 +88,9 @@ def run_one(demo: Path, stem: str, sampler: str, seed: int) -> Path:
     if missing:
         raise RuntimeError(f"{stem}: PyMC gave no {missing} group(s)")
     out = xr.DataTree.from_dict({f"/{k}": v for k, v in groups.items()})
+    # Group attributes are PyMC's own (the posterior's ``inference_library`` is
+    # "pymc" or "nutpie"); nothing of ours is added.
     out.attrs.update(tree.attrs)
-    out.attrs["inference_library"] = "pymc"
-    out.attrs["nuts_sampler"] = sampler
     path = demo / "fits" / f"{stem}.nc"
     encoding = {
         f"/{g}": {

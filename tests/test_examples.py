@@ -30,6 +30,7 @@ from pathlib import Path
 
 import numpy as np
 import pytest
+import xarray as xr
 from scipy import stats
 
 from auditor.loaders import load_draws
@@ -182,16 +183,15 @@ def test_every_analysis_has_log_lik_and_both_predictives(name):
 
 
 def test_pymc_runs_use_both_nuts_implementations():
-    samplers = {}
+    # The samplers name themselves in the posterior group's attributes
+    # (``inference_library``, written by PyMC and by nutpie, not by our generator).
+    libraries = {}
     for name in PYMC:
-        stats_vars = set(_load(name).tree["sample_stats"].data_vars)
         path = _files(ANALYSES[name]["draws"])[0]
-        import xarray as xr
-
         with xr.open_datatree(path, engine="h5netcdf") as raw:
-            samplers[name] = raw.attrs.get("nuts_sampler")
-        assert "diverging" in stats_vars
-    assert {"pymc", "nutpie"} <= set(samplers.values()), samplers
+            libraries[name] = raw["posterior"].attrs.get("inference_library")
+        assert "diverging" in _load(name).tree["sample_stats"].data_vars
+    assert {"pymc", "nutpie"} <= set(libraries.values()), libraries
 
 
 # ------------------------------------------------------------------ CmdStan layout
@@ -232,6 +232,31 @@ def test_csv_chain_ids_seeds_and_footer(name):
         assert lines[col + 3] == "# Diagonal elements of inverse mass matrix:"
         assert lines[-4].startswith("#  Elapsed Time: ") and lines[-4].endswith("(Warm-up)")
         assert lines[-2].endswith("seconds (Total)")
+
+
+def test_csv_columns_follow_cmdstan_order():
+    # CmdStan writes parameters, then transformed parameters, then generated
+    # quantities, each in declaration order, array elements as name.i (CmdStan
+    # guide, "Stan CSV file format"; common practice).
+    path = _files(ANALYSES["yards-noncentered"]["draws"])[0]
+    columns = next(ln for ln in path.read_text().splitlines() if not ln.startswith("#"))
+    d = json.loads((DEMO / "data" / "yards.json").read_text())
+    j, n = d["J"], d["N"]
+    expected = (
+        ["mu", "tau"]
+        + [f"z.{i}" for i in range(1, j + 1)]
+        + [f"theta.{i}" for i in range(1, j + 1)]
+        + [f"log_lik.{i}" for i in range(1, n + 1)]
+        + [f"y_rep.{i}" for i in range(1, n + 1)]
+    )
+    assert columns.split(",")[7:] == expected
+    for name in STAN:
+        post, prior = (_files(ANALYSES[name][k])[0] for k in ("draws", "prior_draws"))
+        first = [
+            next(ln for ln in p.read_text().splitlines() if not ln.startswith("#"))
+            for p in (post, prior)
+        ]
+        assert first[0] == first[1], name
 
 
 def _pooled_posterior(name: str) -> dict[str, np.ndarray]:
