@@ -182,3 +182,12 @@ def test_damaged_sources_never_raise() -> None:
             summary = read_pymc_text(damaged, path)
             for problem in summary.syntax_errors:
                 assert problem.line >= 1 and problem.column >= 1 and problem.message
+
+
+def test_value_is_read_before_its_name_is_rebound() -> None:
+    # Python evaluates the right-hand side first: `scale` in the call is the float.
+    s = summary_of("import pymc as pm\nscale = 2.0\nwith pm.Model():\n"
+                   "    scale = pm.HalfNormal('tau', sigma=scale)\n"
+                   "    pm.Normal('y', 0, scale, observed=[0.5])\n")
+    assert s.declarations["tau"].priors[0].args[0].names == ("scale",)
+    assert s.likelihoods[0].distribution.args[1].names == ("tau",)

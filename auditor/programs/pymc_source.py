@@ -164,14 +164,7 @@ class _Reader:
 
     def read(self, tree: ast.Module) -> None:
         self.find_imports(tree)
-        nodes = sorted(
-            (n for n in ast.walk(tree) if isinstance(n, ast.Assign | ast.AnnAssign | ast.Call)),
-            key=lambda n: (n.lineno, n.col_offset, isinstance(n, ast.Call)))
-        for node in nodes:
-            if isinstance(node, ast.Assign | ast.AnnAssign):
-                self.note_assignment(node)
-            else:
-                self.read_call(node)
+        _Walker(self).visit(tree)
         self.link_hierarchy()
 
     def note_assignment(self, node: ast.Assign | ast.AnnAssign) -> None:
@@ -357,6 +350,30 @@ class _Reader:
                             roles = getattr(decls[ref], role)
                             if decl.name not in roles:
                                 roles.append(decl.name)
+
+
+class _Walker(ast.NodeVisitor):
+    """Visit the module in execution order: a value before the name it is bound to.
+
+    So in ``sigma = pm.HalfNormal("sigma", sigma=sigma)`` the argument still means
+    the earlier Python value, as it would when run.
+    """
+
+    def __init__(self, reader: _Reader) -> None:
+        self.reader = reader
+
+    def visit_Assign(self, node: ast.Assign) -> None:
+        self.visit(node.value)
+        self.reader.note_assignment(node)
+
+    def visit_AnnAssign(self, node: ast.AnnAssign) -> None:
+        if node.value is not None:
+            self.visit(node.value)
+            self.reader.note_assignment(node)
+
+    def visit_Call(self, node: ast.Call) -> None:
+        self.generic_visit(node)
+        self.reader.read_call(node)
 
 
 def _dims(reader: _Reader, kwargs: dict[str, ast.expr]) -> tuple[str, ...]:
