@@ -470,3 +470,14 @@ def test_damaged_programs_never_raise(path: Path) -> None:
             for problem in summary.syntax_errors:
                 assert 1 <= problem.line <= n_lines and problem.column >= 1
                 assert problem.message and problem.path == str(path)
+
+
+def test_very_deep_nesting_is_a_finding_not_a_crash() -> None:
+    from auditor.programs.stan import read_stan_text
+
+    fine = read_stan_text("transformed data { real x = " + "(" * 200 + "1" + ")" * 200 + "; }",
+                          Path("deep.stan"))
+    assert fine.syntax_errors == [] and "x" in fine.declarations
+    deep = read_stan_text("transformed data { real x = " + "(" * 5000 + "1" + ")" * 5000 + "; }",
+                          Path("deep.stan"))
+    assert "nested too deeply" in deep.syntax_errors[0].message

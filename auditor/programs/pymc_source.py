@@ -453,5 +453,9 @@ def read_pymc_text(source: str, path: Path) -> ProgramSummary:
         summary.syntax_errors.append(
             SyntaxProblem(f"cannot parse the file as Python: {exc}", 1, 1, str(path)))
         return summary
-    _Reader(source, summary).read(tree)
+    try:
+        _Reader(source, summary).read(tree)
+    except RecursionError:
+        summary.syntax_errors.append(SyntaxProblem(
+            "the file is nested too deeply to read", 1, 1, str(path)))
     return summary

@@ -40,10 +40,18 @@ def read_stan_text(text: str, path: Path) -> ProgramSummary:
             SyntaxProblem(exc.message, line, exc.column, file or str(path)))
         return summary
     except RecursionError:
-        summary.syntax_errors.append(SyntaxProblem(
-            "the program is nested too deeply to parse", 1, 1, str(path)))
-        return summary
-    summarize(tree, source, summary)
+        return _too_deep(summary, path)
+    try:
+        summarize(tree, source, summary)
+    except RecursionError:
+        return _too_deep(summary, path)
+    return summary
+
+
+def _too_deep(summary: ProgramSummary, path: Path) -> ProgramSummary:
+    summary.syntax_errors.append(SyntaxProblem(
+        "the program is nested too deeply to read (thousands of levels of brackets)",
+        1, 1, str(path)))
     return summary
 
 
