@@ -54,13 +54,15 @@ def parameter_names(cols: dict[str, np.ndarray], program: str) -> list[str]:
     return [k for k in cols if k.split(".")[0] in declared]
 
 
-def rhat_ess(draws: np.ndarray) -> tuple[float, float]:
-    """Rank-normalized R-hat and bulk-ESS of one quantity, (chain, draw) array."""
+def rhat_ess(draws: np.ndarray) -> tuple[float, float, float]:
+    """Rank-normalized R-hat, bulk-ESS and tail-ESS of one quantity, (chain, draw) array."""
     from arviz_stats import ess, rhat
 
     r = float(rhat(draws, method="rank"))
     e = float(ess(draws, method="bulk"))
-    return r, e
+    # Tail-ESS: the smaller ESS of the 5% and 95% quantile indicators (same paper).
+    t = float(ess(draws, method="tail", prob=(0.05, 0.95)))
+    return r, e, t
 
 
 def measure() -> list[dict[str, object]]:
@@ -75,6 +77,8 @@ def measure() -> list[dict[str, object]]:
             y = np.asarray(json.loads((DEMO / a["data"]).read_text())[a["observed"]], float)
             row["divergent"] = int(cols["divergent__"].sum())
             row["divergent_prior_run"] = int(prior_cols["divergent__"].sum())
+            # Draws whose tree reached the maximum depth (10, the header's max_depth).
+            row["max_depth_prior_run"] = int((prior_cols["treedepth__"] >= 10).sum())
             params = {k: cols[k] for k in parameter_names(cols, a["model"])}
             y_rep = group_vars(cols, a["predictive"])
             prior_rep = group_vars(prior_cols, a["predictive"])
@@ -83,6 +87,7 @@ def measure() -> list[dict[str, object]]:
             y = tree["observed_data"][a["observed"]].values.astype(float)
             row["divergent"] = int(tree["sample_stats"]["diverging"].values.sum())
             row["divergent_prior_run"] = "-"
+            row["max_depth_prior_run"] = "-"
             post = tree["posterior"]
             params = {}
             for name, var in post.data_vars.items():
@@ -94,6 +99,7 @@ def measure() -> list[dict[str, object]]:
         stats = [rhat_ess(v) for v in params.values()]
         row["max_rhat"] = max(s[0] for s in stats)
         row["min_bulk_ess"] = min(s[1] for s in stats)
+        row["min_tail_ess"] = min(s[2] for s in stats)
         var_rep = y_rep.reshape(-1, y_rep.shape[-1]).var(axis=1, ddof=1)
         row["var_ratio"] = float(var_rep.mean() / y.var(ddof=1))
         row["ppp_var"] = float(np.mean(var_rep >= y.var(ddof=1)))

@@ -327,6 +327,8 @@ def test_healthy_fits_pass_rhat_and_bulk_ess(name):
     for label, draws in _flat_params(name).items():
         assert float(rhat(draws, method="rank")) <= 1.01, f"{name} {label}"
         assert float(ess(draws, method="bulk")) >= 400, f"{name} {label}"
+        # Tail-ESS: the smaller ESS of the 5% and 95% quantile indicators (same paper).
+        assert float(ess(draws, method="tail", prob=(0.05, 0.95))) >= 400, f"{name} {label}"
     if name not in ("wax-flat",):
         assert _divergences(name) <= 5
 
@@ -370,9 +372,15 @@ def test_flat_prior_run_explodes_in_the_prior_only_run():
     # With no prior statement the coefficient's prior is improper (Stan
     # Reference Manual); its prior-only run drifts without bound, so its prior
     # predictive draws are far beyond anything the data could be.
-    prior_beta = _load("wax-flat", prior=True).tree["posterior"]["beta"].values
+    loaded = _load("wax-flat", prior=True)
+    prior_beta = loaded.tree["posterior"]["beta"].values
     y = _observed("wax-flat")
     assert np.abs(prior_beta).max() > 1e3 * np.abs(y).max()
+    # The sampler works at its maximum tree depth for much of the run (tree
+    # depth at max_depth: an efficiency warning sign, common practice).
+    depth = loaded.tree["sample_stats"]["tree_depth"].values
+    assert loaded.settings.max_depth == 10
+    assert np.mean(depth >= 10) > 0.1
 
 
 # ------------------------------------------------------------------ the record
