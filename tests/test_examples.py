@@ -259,6 +259,27 @@ def test_csv_columns_follow_cmdstan_order():
         assert first[0] == first[1], name
 
 
+@pytest.mark.parametrize("name", STAN)
+def test_csv_header_settings_as_the_loader_reads_them(name):
+    # The settings the task fixed (4 chains, 1000 warmup, 1000 draws, NUTS with
+    # CmdStan's defaults otherwise), as CmdStan would echo them.
+    s = _load(name).settings
+    assert (s.num_samples, s.num_warmup, s.thin, s.save_warmup) == (1000, 1000, 1, False)
+    assert (s.algorithm, s.engine, s.metric, s.max_depth) == ("hmc", "nuts", "diag_e", 10)
+    assert s.adapt_engaged is True and s.adapt_delta == pytest.approx(0.8)
+    assert s.chain_ids == [1, 2, 3, 4]
+    assert len(set(s.seeds)) == 1
+    assert s.model_name == Path(ANALYSES[name]["model"]).stem + "_model"
+
+
+@pytest.mark.parametrize("name", PYMC)
+def test_pymc_runs_tuned_1000_steps(name):
+    # PyMC and nutpie record their own tuning length in the posterior attributes.
+    path = _files(ANALYSES[name]["draws"])[0]
+    with xr.open_datatree(path, engine="h5netcdf") as raw:
+        assert int(raw["posterior"].attrs["tuning_steps"]) == 1000
+
+
 def _pooled_posterior(name: str) -> dict[str, np.ndarray]:
     """Posterior variables with chains pooled: (chain * draw, ...)."""
     post = _load(name).tree["posterior"]
