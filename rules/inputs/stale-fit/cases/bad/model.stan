@@ -6,8 +6,8 @@ data {
 }
 parameters {
   real mu;
-  real<lower=0> sigma;
-  vector[J] board;
+  real<lower=0> sigma;                         // expect: inputs.stale-fit
+  vector[J] board;                             // expect: inputs.stale-fit
 }
 model {
   mu ~ normal(5, 2);

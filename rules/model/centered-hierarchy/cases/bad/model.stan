@@ -12,6 +12,6 @@ parameters {
 model {
   mu ~ normal(0, 5);
   tau ~ normal(0, 5);
-  theta ~ normal(mu, tau);
+  theta ~ normal(mu, tau);                     // expect: model.centered-hierarchy
   uplift ~ normal(theta, se);
 }
