@@ -787,3 +787,25 @@ def test_demo_flagged_where_the_examples_readme_says():
                     checked += 1
     if checked == 0:
         pytest.skip("the examples README names no file:line for priors.missing/priors.vague yet")
+
+
+# --------------------------------------------------------------- odd inputs
+
+@pytest.mark.parametrize("rule_id", sorted(PROGRAM_RULES))
+def test_rules_take_odd_summaries_without_raising(rule_id):
+    # A reader may leave arguments out or give texts no rule expects; data may hold
+    # strings. A check must then say nothing rather than fail (a raising check
+    # becomes an inputs.rule-failed finding, rules_format.md).
+    prog = program(
+        decl("a", dist("normal"), dist("uniform", "0"), dist("inv_gamma", "0.001")),
+        decl("b", dist("student_t", "3", "0", "x ? 1 : 2"), type="cov_matrix", dims=("K",)),
+        decl("c", dist("normal", "0", "1"), type="vector", dims=("N +* 2",), lower="lo"),
+        decl("t", dist("normal", "m", "s"), type="tuple", dims=("2",)),
+        likelihoods=(lik("y", dist("normal")), lik("z", dist("normal", "a +", "b")),
+                     lik("w", dist("bernoulli", "inv_logit()"))),
+    )
+    data = {"y": ["a", "b", "c"], "z": [1.0, float("nan"), 2.0], "w": [], "K": "three",
+            "N": 2.5, "lo": [1, 2]}
+    tree = posterior_tree({"a": (), "b": (2, 2), "c": (3,)}, diverging=np.zeros((2, 5), bool))
+    found = run(rule_id, prog, data=data, tree=tree, observed="y")
+    assert all(isinstance(f, Finding) and f.rule_id == rule_id for f in found)
