@@ -481,3 +481,16 @@ def test_very_deep_nesting_is_a_finding_not_a_crash() -> None:
     deep = read_stan_text("transformed data { real x = " + "(" * 5000 + "1" + ")" * 5000 + "; }",
                           Path("deep.stan"))
     assert "nested too deeply" in deep.syntax_errors[0].message
+
+
+@pytest.mark.parametrize(("src", "suggestion", "column"), [
+    # Block names of the Stan Reference Manual, "Program Blocks".
+    ("parameter {\n}\n", "did you mean 'parameters'?", 1),
+    ("data { int N; }\ntransformed_data {\n}\n", "did you mean 'transformed data'?", 1),
+    ("generated_quantity {\n}\n", "did you mean 'generated quantities'?", 1),
+    ("data { rael x; }\n", "did you mean 'real'?", 8),
+    ("parameters { real<lowe=0> x; }\n", "did you mean 'lower'?", 19),
+])
+def test_misspelt_keywords_get_a_suggestion(src: str, suggestion: str, column: int) -> None:
+    (problem,) = read_program_text(src).syntax_errors
+    assert suggestion in problem.message and problem.column == column

@@ -7,6 +7,7 @@ keeps its line and column (``propagate_positions``).
 
 from __future__ import annotations
 
+import difflib
 from dataclasses import dataclass
 from functools import cache
 from pathlib import Path
@@ -88,6 +89,15 @@ def _explain(exc: UnexpectedInput, parser: Lark, text: str) -> StanSyntaxError:
         return StanSyntaxError("a comment opened with /* is never closed by */",
                                exc.line or 1, exc.column or 1)
     if isinstance(exc, UnexpectedCharacters):
+        word = _word_around(text, exc.pos_in_stream)
+        if word is not None:
+            # `transformed_parameters`: a keyword was read, then '_' did not fit.
+            start, name = word
+            allowed = _accepts_at(parser, text, start) or set(exc.allowed or ())
+            message = (f"unexpected name '{name}' — expected "
+                       f"{_describe_expected(allowed, parser)}")
+            message += _did_you_mean(name, allowed, parser)
+            return StanSyntaxError(message, exc.line, exc.column - (exc.pos_in_stream - start))
         char = exc.char
         what = "an unterminated string" if char == '"' else f"unexpected character {char!r}"
         return StanSyntaxError(what, exc.line, exc.column)
@@ -105,6 +115,8 @@ def _explain(exc: UnexpectedInput, parser: Lark, text: str) -> StanSyntaxError:
             return StanSyntaxError(f"unexpected end of the program — expected {expected}",
                                    line, column)
         message = f"unexpected {_describe_token(token)} — expected {expected}"
+        if token.type == "IDENT":
+            message += _did_you_mean(str(token.value), allowed, parser)
         previous = (exc.token_history or [None])[-1]
         semicolon_allowed = any(
             t.name in allowed and t.pattern.value == ";" for t in parser.terminals)
@@ -119,6 +131,45 @@ def _explain(exc: UnexpectedInput, parser: Lark, text: str) -> StanSyntaxError:
         expected = _describe_expected(set(exc.expected), parser)
         return StanSyntaxError(f"unexpected end of the program — expected {expected}", 1, 1)
     return StanSyntaxError(str(exc).splitlines()[0], exc.line or 1, exc.column or 1)
+
+
+def _accepts_at(parser: Lark, text: str, pos: int) -> set[str]:
+    """Terminals the grammar accepts at ``pos``, found by parsing the text before it."""
+    try:
+        interactive = parser.parse_interactive(text[:pos])
+        interactive.exhaust_lexer()
+        return set(interactive.accepts())
+    except Exception:  # noqa: BLE001 - only a better message is at stake
+        return set()
+
+
+def _word_around(text: str, pos: int) -> tuple[int, str] | None:
+    """(start, word) of an identifier-like word that ``pos`` falls inside, if any."""
+    ident = set("abcdefghijklmnopqrstuvwxyzABCDEFGHIJKLMNOPQRSTUVWXYZ0123456789_")
+    if pos >= len(text) or text[pos] not in ident:
+        return None
+    start, end = pos, pos
+    while start > 0 and text[start - 1] in ident:
+        start -= 1
+    while end < len(text) and text[end] in ident:
+        end += 1
+    word = text[start:end]
+    if start == pos or not word[0].isalpha():
+        return None
+    return start, word
+
+
+def _did_you_mean(word: str, allowed: set[str] | frozenset[str], parser: Lark) -> str:
+    """`` (did you mean 'parameters'?)`` when a keyword allowed here is spelled close."""
+    keywords = [t.pattern.value for t in parser.terminals
+                if t.name in allowed and t.pattern.type == "str" and t.pattern.value.isalpha()]
+    if any(t.name == "CONSTRAINT_KEY" for t in parser.terminals if t.name in allowed):
+        keywords += ["lower", "upper", "offset", "multiplier"]
+    # Two-word block names are typed as one word or with an underscore.
+    keywords += [k for k in ("transformed data", "transformed parameters",
+                             "generated quantities") if k.split()[0] in keywords]
+    close = difflib.get_close_matches(word.replace("_", " "), keywords, n=1, cutoff=0.75)
+    return f" (did you mean '{close[0]}'?)" if close and close[0] != word else ""
 
 
 def _end_position(exc: UnexpectedToken) -> tuple[int, int]:
