@@ -124,7 +124,8 @@ def _explain(exc: UnexpectedInput, parser: Lark, text: str) -> StanSyntaxError:
                 and token.line and token.line > previous.end_line):
             # A missing ';' is noticed on the next line; point at where it belongs.
             return StanSyntaxError(
-                f"missing ';' after '{previous.value}' ({message})",
+                f"missing ';' after '{previous.value}' (the next {_describe_token(token)} "
+                f"is on a later line)",
                 previous.end_line, previous.end_column)
         return StanSyntaxError(message, token.line or 1, token.column or 1)
     if isinstance(exc, UnexpectedEOF):
