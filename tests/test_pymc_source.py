@@ -191,3 +191,30 @@ def test_value_is_read_before_its_name_is_rebound() -> None:
                    "    pm.Normal('y', 0, scale, observed=[0.5])\n")
     assert s.declarations["tau"].priors[0].args[0].names == ("scale",)
     assert s.likelihoods[0].distribution.args[1].names == ("tau",)
+
+
+def test_more_parametrizations() -> None:
+    s = summary_of(
+        "import pymc3 as pm\n"
+        "with pm.Model():\n"
+        "    t = pm.TruncatedNormal('t', mu=1, sigma=2, lower=0, upper=10)\n"
+        "    e = pm.Exponential('e', scale=4)\n"
+        "    h = pm.HalfNormal('h', tau=4)\n"
+        "    st = pm.StudentT('st', nu=4, lam=0.25)\n"
+        "    z = pm.ZeroInflatedPoisson('z', psi=0.9, mu=3)\n"
+        "    pm.Bernoulli('b', p=0.3, observed=[0, 1])\n")
+    d = s.declarations
+    t = d["t"].priors[0]
+    # TruncatedNormal is Stan's normal(mu, sigma) T[lower, upper] on a bounded variable.
+    assert (t.family, [a.value for a in t.args], t.truncation) == ("normal", [1.0, 2.0],
+                                                                    ("0", "10"))
+    assert (d["t"].lower.value, d["t"].upper.value) == (0.0, 10.0)
+    # Exponential(scale=4) is rate 1/4; HalfNormal(tau=4) is sigma 1/2; StudentT(lam=0.25)
+    # is sigma 2, with PyMC's default mu = 0 (pymc docs).
+    assert [a.value for a in d["e"].priors[0].args] == [0.25]
+    assert [a.value for a in d["h"].priors[0].args] == [0.5]
+    assert [a.value for a in d["st"].priors[0].args] == [4.0, 0.0, 2.0]
+    # A family we do not map keeps PyMC's own order under a snake_case name.
+    z = d["z"].priors[0]
+    assert z.family == "zero_inflated_poisson" and [a.value for a in z.args] == [0.9, 3.0]
+    assert s.likelihoods[0].distribution.family == "bernoulli"
