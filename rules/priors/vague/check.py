@@ -274,12 +274,13 @@ def check(ctx: RuleContext) -> Iterable[Finding]:
             if prior_scale is None or prior_scale <= 0:
                 continue
             loc = _where(ctx, dist)
+            shown = f"{dist.family}({', '.join(a.text for a in dist.args)})"
             if decl.name in scales.by_name:
                 data_scale, how = scales.by_name[decl.name]
                 ratio = prior_scale / data_scale
                 if ratio > max_ratio:
                     findings.append(ctx.finding(
-                        f"The prior {dist.family}(...) on `{decl.name}` has scale "
+                        f"The prior {shown} on `{decl.name}` has scale "
                         f"{prior_scale:g}, {ratio:.3g} times the data scale {data_scale:.3g} "
                         f"({how}); the limit is {max_ratio:g} times.",
                         evidence={"parameter": decl.name, "family": dist.family,
@@ -289,7 +290,7 @@ def check(ctx: RuleContext) -> Iterable[Finding]:
                         quantity=decl.name, location=loc))
             elif prior_scale > max_scale:
                 findings.append(ctx.finding(
-                    f"The prior {dist.family}(...) on `{decl.name}` has scale {prior_scale:g}, "
+                    f"The prior {shown} on `{decl.name}` has scale {prior_scale:g}, "
                     f"above the limit of {max_scale:g} (no data scale could be tied to it).",
                     evidence={"parameter": decl.name, "family": dist.family,
                               "prior_scale": prior_scale, "data_scale": None, "ratio": None,
