@@ -218,3 +218,22 @@ def test_more_parametrizations() -> None:
     z = d["z"].priors[0]
     assert z.family == "zero_inflated_poisson" and [a.value for a in z.args] == [0.9, 3.0]
     assert s.likelihoods[0].distribution.family == "bernoulli"
+
+
+def test_truncated_and_censored_wrappers() -> None:
+    s = summary_of(
+        "import pymc as pm\nimport numpy as np\n"
+        "with pm.Model():\n"
+        "    mu = pm.Truncated('mu', pm.Normal.dist(mu=5, sigma=3), lower=0)\n"
+        "    s = pm.HalfNormal('s', 1)\n"
+        "    pm.Censored('hours', pm.LogNormal.dist(mu, s), lower=None, upper=40,\n"
+        "                observed=np.array([3.0, 40.0]))\n")
+    mu = s.declarations["mu"]
+    # Truncated renormalizes like Stan's T[0, ] (pymc.Truncated docs).
+    assert mu.priors[0].family == "normal" and mu.priors[0].truncation == ("0", None)
+    assert [a.value for a in mu.priors[0].args] == [5.0, 3.0] and mu.lower.value == 0
+    assert mu.priors[0].line == 4
+    (lik,) = s.likelihoods
+    assert lik.variable == "hours" and lik.distribution.family == "lognormal"
+    assert [a.names for a in lik.distribution.args] == [("mu",), ("s",)]
+    assert lik.distribution.truncation is None and lik.observed == "np.array([3.0, 40.0])"

@@ -200,33 +200,85 @@ class _Reader:
         if callee in _DATA_CALLS:
             self.declare(name, "data", line, column, dims)
             return
-        if callee in {"Model", "Potential", "Censored", "Mixture", "Truncated"}:
+        if callee in {"Censored", "Truncated"}:
+            self.read_wrapped(callee, name, call, kwargs, dims)
             return
-        dist, family = self.distribution(callee, call, kwargs)
+        if callee in {"Model", "Potential", "Mixture"}:
+            return
+        dist, family, given = self.distribution(callee, call, kwargs, list(call.args[1:]))
+        self.record(name, callee, family, given, dist, kwargs, call, dims)
+
+    def read_wrapped(self, callee: str, name: str, call: ast.Call,
+                     kwargs: dict[str, ast.expr], dims: tuple[str, ...]) -> None:
+        """``pm.Truncated("y", pm.Normal.dist(...), lower=, upper=)`` and ``pm.Censored``."""
+        inner = kwargs.get("dist", call.args[1] if len(call.args) > 1 else None)
+        inner_callee = self.dist_callee(inner)
+        if inner_callee is None or not isinstance(inner, ast.Call):
+            return
+        inner_kwargs = {k.arg: k.value for k in inner.keywords if k.arg}
+        dist, family, given = self.distribution(
+            inner_callee, inner, inner_kwargs, list(inner.args))
+        # Place and text are the outer call's: that is the statement the user wrote.
+        dist.line, dist.column, dist.text = call.lineno, call.col_offset + 1, self.text(call)
+        low, high = kwargs.get("lower"), kwargs.get("upper")
+        if callee == "Truncated":
+            # Truncation renormalizes the density, as Stan's T[lower, upper].
+            dist.truncation = (self.text(low) or None, self.text(high) or None)
+        decl = self.record(name, inner_callee, family, given, dist, kwargs, call, dims)
+        if decl is not None and callee == "Truncated":
+            for key, node in (("lower", low), ("upper", high)):
+                if node is not None:
+                    setattr(decl, key, Bound(self.text(node), literal(node)))
+
+    def dist_callee(self, node: ast.AST | None) -> str | None:
+        """``Normal`` for ``pm.Normal.dist(...)``, else None."""
+        if not (isinstance(node, ast.Call) and isinstance(node.func, ast.Attribute)
+                and node.func.attr == "dist"):
+            return None
+        owner = node.func.value
+        if (isinstance(owner, ast.Attribute) and isinstance(owner.value, ast.Name)
+                and owner.value.id in self.modules):
+            return owner.attr
+        if isinstance(owner, ast.Name) and owner.id in self.direct:
+            return self.direct[owner.id]
+        return None
+
+    def record(self, name: str, callee: str, family: _Family | None,
+               given: dict[str, ast.expr], dist: Distribution, kwargs: dict[str, ast.expr],
+               call: ast.Call, dims: tuple[str, ...]) -> Declaration | None:
+        """Declare the variable and file its distribution as prior or likelihood."""
+        line, column = call.lineno, call.col_offset + 1
         observed = kwargs.get("observed")
         block = "data" if observed is not None else "parameters"
         decl = self.declare(name, block, line, column, dims)
         if decl is None:
-            return
+            return None
         decl.type = "int" if dist.family in _DISCRETE else "real"
         if observed is not None:
             used = self.data_reached([n for a in dist.args for n in a.names], name)
             self.summary.likelihoods.append(
                 Likelihood(name, dist, used, observed=self.text(observed)))
-            return
+            return decl
         decl.priors.append(dist)
-        self.set_bounds(decl, callee, family, kwargs, call)
+        self.set_bounds(decl, callee, family, given)
+        return decl
 
     def distribution(
-        self, callee: str, call: ast.Call, kwargs: dict[str, ast.expr]
-    ) -> tuple[Distribution, _Family | None]:
+        self, callee: str, call: ast.Call, kwargs: dict[str, ast.expr],
+        positional: list[ast.expr],
+    ) -> tuple[Distribution, _Family | None, dict[str, ast.expr]]:
+        """The Stan-named distribution of a PyMC call, arguments in Stan's order.
+
+        ``positional`` are the call's distribution parameters given by position
+        (after the name for ``pm.X("name", ...)``, all for ``pm.X.dist(...)``).
+        Also returns the PyMC parameters given, by name.
+        """
         family = _FAMILIES.get(callee)
-        positional = list(call.args[1:])
         if family is None:
             # Not in our table: keep PyMC's own order under a snake_case name.
             args = [self.arg(a) for a in positional]
             args += [self.arg(v) for k, v in kwargs.items() if k not in _NON_PARAMETER_KEYWORDS]
-            return self.make(call, _snake(callee), args), None
+            return self.make(call, _snake(callee), args), None, {}
         given: dict[str, ast.expr] = dict(zip(family.params, positional, strict=False))
         given.update({k: v for k, v in kwargs.items() if k not in _NON_PARAMETER_KEYWORDS})
         stan_name = family.stan
@@ -259,7 +311,7 @@ class _Reader:
         if callee == "TruncatedNormal":
             low, high = given.get("lower"), given.get("upper")
             dist.truncation = (self.text(low) or None, self.text(high) or None)
-        return dist, family
+        return dist, family, given
 
     def make(self, call: ast.Call, family: str, args: list[Arg]) -> Distribution:
         return Distribution(family, args, call.lineno, call.col_offset + 1, self.text(call))
@@ -290,11 +342,10 @@ class _Reader:
         return [Arg(f"({mt})^2 / ({st})^2", None, names), Arg(f"({mt}) / ({st})^2", None, names)]
 
     def set_bounds(self, decl: Declaration, callee: str, family: _Family | None,
-                   kwargs: dict[str, ast.expr], call: ast.Call) -> None:
+                   given: dict[str, ast.expr]) -> None:
         if family is None:
             return
         if callee in {"Uniform", "TruncatedNormal"}:
-            given = dict(zip(family.params, call.args[1:], strict=False)) | kwargs
             for key in ("lower", "upper"):
                 node = given.get(key)
                 if node is not None:
