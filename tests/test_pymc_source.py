@@ -237,3 +237,9 @@ def test_truncated_and_censored_wrappers() -> None:
     assert lik.variable == "hours" and lik.distribution.family == "lognormal"
     assert [a.names for a in lik.distribution.args] == [("mu",), ("s",)]
     assert lik.distribution.truncation is None and lik.observed == "np.array([3.0, 40.0])"
+
+
+def test_definitions_of_deterministics_and_python_expressions() -> None:
+    s = read_program(CORPUS / "aliases_and_families.py")
+    assert s.definitions["mu"] == "alpha + beta * x"
+    assert s.definitions["loaf"] == "1.1 * dough + 0.05"

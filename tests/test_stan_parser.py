@@ -494,3 +494,13 @@ def test_very_deep_nesting_is_a_finding_not_a_crash() -> None:
 def test_misspelt_keywords_get_a_suggestion(src: str, suggestion: str, column: int) -> None:
     (problem,) = read_program_text(src).syntax_errors
     assert suggestion in problem.message and problem.column == column
+
+
+def test_definitions_of_single_assignment_variables() -> None:
+    s = read_program(CORPUS / "regression.stan")
+    assert s.definitions["mu_dough"] == "alpha + beta[oven] .* dough"
+    assert s.definitions["mu"] == "mu_dough + gamma_heat * heat"
+    # Assigned in more than one statement (or with +=): no single definition.
+    st = read_program(CORPUS / "statements.stan").definitions
+    assert "total" not in st and "scaled" not in st and "k" not in st
+    assert st["log_rate"] == "alpha + beta * wind"

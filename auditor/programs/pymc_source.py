@@ -101,6 +101,7 @@ class _Reader:
     computed_from: dict[str, list[str]] = field(default_factory=dict)
     #: Names bound by any import (``np``, ``pm``): modules, not model quantities.
     imported: set[str] = field(default_factory=set)
+    definition_count: dict[str, int] = field(default_factory=dict)
 
     # ------------------------------------------------------------ helpers
     def text(self, node: ast.AST | None) -> str:
@@ -183,6 +184,16 @@ class _Reader:
             else:
                 self.rv_names.pop(target.id, None)
                 self.computed_from[target.id] = list(self.names(value))
+                self.define(target.id, value)
+
+    def define(self, name: str, expr: ast.expr) -> None:
+        """Note ``name``'s defining expression; a second definition cancels it."""
+        count = self.definition_count.get(name, 0) + 1
+        self.definition_count[name] = count
+        if count == 1:
+            self.summary.definitions[name] = self.text(expr)
+        else:
+            self.summary.definitions.pop(name, None)
 
     def read_call(self, call: ast.Call) -> None:
         callee = self.pymc_callee(call)
@@ -196,6 +207,8 @@ class _Reader:
             expr = call.args[1] if len(call.args) > 1 else kwargs.get("var")
             self.declare(name, "transformed parameters", line, column, dims)
             self.computed_from[name] = list(self.names(expr))
+            if expr is not None:
+                self.define(name, expr)
             return
         if callee in _DATA_CALLS:
             self.declare(name, "data", line, column, dims)

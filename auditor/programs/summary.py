@@ -183,6 +183,12 @@ class ProgramSummary:
     syntax_errors: list[SyntaxProblem] = field(default_factory=list)
     includes: list[str] = field(default_factory=list)
     source_lines: list[str] = field(default_factory=list)
+    #: Source text of the expression a local, transformed or Deterministic variable
+    #: is defined by, when it is given its value in exactly one statement
+    #: (``mu = alpha + beta * x;`` or ``mu[n] = alpha + beta * x[n];`` in a loop),
+    #: so rules can see through it. PyMC: keyed by the Python name for plain
+    #: Python variables, by the PyMC name for ``pm.Deterministic``.
+    definitions: dict[str, str] = field(default_factory=dict)
 
     def block(self, name: str) -> list[Declaration]:
         """Declarations of one block, in source order."""

@@ -59,6 +59,7 @@ class _Builder:
         #: `_lp` function name -> (argument names, its ~ / target += statements).
         self.lp_functions: dict[str, tuple[list[str], list[tuple[Tree, str]]]] = {}
         self.lp_calls: list[Tree] = []
+        self.definition_count: dict[str, int] = {}
 
     # ------------------------------------------------------------ positions & text
     def position(self, node: Tree | Token) -> tuple[str, int, int]:
@@ -156,6 +157,15 @@ class _Builder:
                 self.problem(name_tok, f"'{name}' cannot be given a value in the "
                                        f"'{block}' block")
             self.assigned.setdefault(name, []).extend(names_in(init))
+            self.define(name, init, plain=True)
+
+    def define(self, name: str, expr: Tree, plain: bool) -> None:
+        """Note ``name``'s defining expression; a second definition cancels it."""
+        self.definition_count[name] = self.definition_count.get(name, 0) + 1
+        if plain and self.definition_count[name] == 1:
+            self.summary.definitions[name] = self.text(expr)
+        else:
+            self.summary.definitions.pop(name, None)
 
     def describe_type(self, node: Tree, d: Declaration, dims: list[str]) -> None:
         if node.data == "decl_type":
@@ -193,15 +203,17 @@ class _Builder:
                 name_tok, _, init = item.children
                 if init is not None:
                     self.assigned.setdefault(str(name_tok), []).extend(names_in(init))
+                    self.define(str(name_tok), init, plain=True)
             return
         if kind == "assign":
-            lhs, _, rhs = node.children
+            lhs, op, rhs = node.children
             target = root_name(lhs)
             if target is None or not is_lvalue(lhs):
                 self.problem(node, "the left side of an assignment must be a variable, "
                                    "optionally indexed (like x or x[i, j])")
             else:
                 self.assigned.setdefault(target, []).extend(names_in(rhs))
+                self.define(target, rhs, plain=str(op.children[0]) in {"=", "<-"})
             return
         if kind == "expr_stmt":
             expr = node.children[0]
