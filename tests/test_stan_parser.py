@@ -504,3 +504,13 @@ def test_definitions_of_single_assignment_variables() -> None:
     st = read_program(CORPUS / "statements.stan").definitions
     assert "total" not in st and "scaled" not in st and "k" not in st
     assert st["log_rate"] == "alpha + beta * wind"
+
+
+def test_tuple_unpacking_is_an_assignment() -> None:
+    # Reference Manual, "Unpacking assignment of tuples" (Stan 2.34+, from memory).
+    s = read_program_text("transformed data { real a; array[2] int b;\n"
+                          "  (a, b[1]) = (1.5, 2);\n  (a, b[2]) = (b[1], 3); }\n")
+    assert s.syntax_errors == []
+    (problem,) = read_program_text("transformed data { real a;\n  (a, 1) = (1, 2); }\n"
+                                   ).syntax_errors
+    assert problem.line == 2 and "left side of an assignment" in problem.message

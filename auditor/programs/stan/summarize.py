@@ -207,13 +207,16 @@ class _Builder:
             return
         if kind == "assign":
             lhs, op, rhs = node.children
-            target = root_name(lhs)
-            if target is None or not is_lvalue(lhs):
+            targets = lvalue_roots(lhs)
+            if not targets:
                 self.problem(node, "the left side of an assignment must be a variable, "
                                    "optionally indexed (like x or x[i, j])")
-            else:
+                return
+            for target in targets:
                 self.assigned.setdefault(target, []).extend(names_in(rhs))
-                self.define(target, rhs, plain=str(op.children[0]) in {"=", "<-"})
+                # An unpacked tuple `(a, b) = f();` gives neither a definition of its own.
+                self.define(target, rhs, plain=len(targets) == 1
+                            and str(op.children[0]) in {"=", "<-"})
             return
         if kind == "expr_stmt":
             expr = node.children[0]
@@ -429,16 +432,26 @@ def root_name(node: Tree | Token | None) -> str | None:
     return None
 
 
-def is_lvalue(node: Tree | Token | None) -> bool:
-    """``x``, ``x[...]``, ``x.1`` and combinations (Reference Manual, "Assignment")."""
+def lvalue_roots(node: Tree | Token | None) -> list[str]:
+    """Variables assigned by an assignment's left side, or [] when it is not one.
+
+    ``x``, ``x[...]``, ``x.1`` and combinations (Reference Manual, "Assignment"),
+    and tuple unpacking ``(a, b[1]) = ...`` (Reference Manual, "Unpacking
+    assignment of tuples").
+    """
+    if isinstance(node, Tree) and node.data == "tuple_expr":
+        first, rest = node.children
+        parts = [first, *rest.children]
+        roots = [lvalue_roots(p) for p in parts]
+        return [r for group in roots for r in group] if all(roots) else []
     while isinstance(node, Tree):
         if node.data == "var":
-            return True
+            return [str(node.children[0])]
         if node.data in {"indexed", "tuple_index"}:
             node = node.children[0]
         else:
-            return False
-    return False
+            return []
+    return []
 
 
 def literal_value(node: Tree | Token | None) -> float | None:
