@@ -50,7 +50,18 @@ class DiagnosticsTable:
 
     @cached_property
     def rows(self) -> list[dict[str, Any]]:
-        """One dict per quantity with the keys of :data:`COLUMNS` and ``constant``."""
+        """One dict per quantity with the keys of :data:`COLUMNS` and ``constant``.
+
+        Odd draws that make the computation fail give no rows and a message in
+        :attr:`errors`, so that rules reading the table still run.
+        """
+        try:
+            return self._compute()
+        except Exception as exc:  # odd data must not stop the audit
+            self.errors.append(f"{type(exc).__name__}: {exc}")
+            return []
+
+    def _compute(self) -> list[dict[str, Any]]:
         ds = self.posterior
         if ds is None or not ds.data_vars or ds.sizes.get("draw", 0) < 4:
             return []

@@ -104,11 +104,15 @@ def _rule_settings(rule: RuleMeta, cfg: Config) -> tuple[bool, Severity, dict[st
     return enabled, severity, thresholds
 
 
-def _failure(rule: RuleMeta, analysis: Analysis | None, project: Project, exc: Exception,
-             what: str) -> Finding:
+def _failure(what: str, analysis: Analysis | None, project: Project,
+             error: Exception | str) -> Finding:
+    """An ``inputs.rule-failed`` finding for a part of the audit that raised."""
     failed = find_rule("inputs.rule-failed")
-    frame = traceback.extract_tb(exc.__traceback__)[-1] if exc.__traceback__ else None
-    where = f" ({Path(frame.filename).name}:{frame.lineno})" if frame else ""
+    where = ""
+    if isinstance(error, Exception):
+        tb = traceback.extract_tb(error.__traceback__) if error.__traceback__ else None
+        where = f" ({Path(tb[-1].filename).name}:{tb[-1].lineno})" if tb else ""
+        error = f"{type(error).__name__}: {error}"
     loc = None
     if analysis is not None and analysis.sources:
         loc = Location(project.relpath(analysis.sources[0]))
@@ -117,10 +121,10 @@ def _failure(rule: RuleMeta, analysis: Analysis | None, project: Project, exc: E
         severity=failed.severity if failed else Severity.WARNING,
         stage="inputs",
         message=(
-            f"rule {rule.id} could not finish its {what} on this analysis: "
-            f"{type(exc).__name__}: {exc}{where}; its result is missing from this audit"
+            f"{what} could not finish on this analysis: {error}{where}; "
+            "its result is missing from this audit"
         ),
-        evidence={"rule": rule.id, "error": type(exc).__name__},
+        evidence={"part": what, "error": error.split(":", 1)[0]},
         fix=failed.fix if failed else "Report this to the tool's maintainers with the input files.",
         location=loc,
         analysis=analysis.name if analysis else None,
@@ -158,21 +162,18 @@ def _audit_analysis(analysis: Analysis, project: Project, rules: list[RuleMeta],
         try:
             hits = list(rule.check(ctx) or [])
         except Exception as exc:  # a rule failing on odd data must not stop the audit
-            findings.append(_failure(rule, analysis, project, exc, "check"))
+            findings.append(_failure(f"rule {rule.id}", analysis, project, exc))
             continue
         findings.extend(hits)
         if hits and rule.figures is not None and cfg.max_figures > 0:
             try:
                 figures.extend(rule.figures(ctx, hits) or [])
             except Exception as exc:
-                findings.append(_failure(rule, analysis, project, exc, "figures"))
+                findings.append(_failure(f"figures of rule {rule.id}", analysis, project, exc))
+    rows = table.rows
+    for error in table.errors:
+        findings.append(_failure("diagnostics table", analysis, project, error))
     findings.sort(key=Finding.sort_key)
-    try:
-        rows = table.rows
-    except Exception as exc:
-        rows = []
-        findings.append(_failure(find_rule("sampling.rhat") or rules[0], analysis, project, exc,
-                                 "diagnostics table"))
     return AnalysisResult(
         name=analysis.name,
         sources=[project.relpath(p) for p in analysis.sources],

@@ -63,3 +63,18 @@ def test_audit_never_writes_into_the_project_except_its_report(tmp_path):
     after = {p for p in project.rglob("*") if p.is_file()}
     assert {p for p in after if p not in before} == {project / "audit-report" / "audit.json"}
     assert all(p.read_bytes() == data for p, data in before.items())
+
+
+def test_a_failing_diagnostics_table_is_reported_once(monkeypatch):
+    from auditor.diagnostics import DiagnosticsTable
+
+    def broken(self):
+        raise FloatingPointError("no variance")
+
+    monkeypatch.setattr(DiagnosticsTable, "_compute", broken)
+    result = run_audit([CASE])
+    failed = [f for f in result.all_findings if f.rule_id == "inputs.rule-failed"]
+    assert len(failed) == 1 and "diagnostics table" in failed[0].message
+    assert result.analyses[0].diagnostics == []
+    # Rules that do not need the table still ran.
+    assert any(f.rule_id == "sampling.divergences" for f in result.all_findings)
