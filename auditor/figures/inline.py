@@ -39,11 +39,12 @@ def _rewrite_urls(value: str, prefix: str) -> str | None:
     return _URL.sub(lambda m: f"url(#{prefix}-{m.group(1)[1:]})", value)
 
 
-def inline_svg(svg: str, prefix: str) -> str:
+def inline_svg(svg: str, prefix: str, scale: float = 1.0) -> str:
     """Return ``svg`` as a sanitized ``<svg>`` element string with ids prefixed by ``prefix``.
 
-    The width and height attributes are replaced by a ``--w`` CSS variable (the
-    natural width) that the page's style sheet uses to bound the figure's size.
+    The height attribute is dropped and the width becomes ``scale`` times the
+    natural width (the page's style sheet lets the figure shrink below it; the
+    ``viewBox`` keeps the aspect ratio).
 
     Raises
     ------
@@ -83,13 +84,14 @@ def inline_svg(svg: str, prefix: str) -> str:
             # Only plain declarations; anything that could load or import is dropped.
             if "@import" in el.text or any(not t.startswith("#") for t in _URL.findall(el.text)):
                 el.text = ""
-    # The page sizes figures through CSS; the natural width stays as the largest size
-    # so a small figure is not blown up (the viewBox keeps the aspect ratio).
+    # The page sizes figures through CSS within a bound of ``scale`` times the natural
+    # width, given as the width attribute (the viewBox keeps the aspect ratio). A style
+    # attribute would be neater, but weasyprint 70 then fails on a second document.
     width = root.attrib.pop("width", "")
     root.attrib.pop("height", None)
     root.attrib.pop("style", None)
-    if re.fullmatch(r"[0-9.]+(pt|px)?", width):
-        root.set("style", f"--w: {width}")
-    root.set("id", prefix)
+    if m := re.fullmatch(r"([0-9.]+)(pt|px)?", width):
+        root.set("width", f"{float(m.group(1)) * scale:.1f}{m.group(2) or 'px'}")
+    root.set("id", f"{prefix}-svg")
     root.set("role", "img")
     return ET.tostring(root, encoding="unicode")

@@ -36,6 +36,9 @@ DEFAULT_BFMI_THRESHOLD = 0.3
 PAIR_CANDIDATES = 12
 #: Upper bound on quantities scanned for the pair search (keeps wide models fast).
 PAIR_SCAN_LIMIT = 400
+#: At most this many non-divergent draws are drawn (every k-th), to keep the SVG small;
+#: every divergent draw is drawn.
+SCATTER_MAX_OTHER = 1500
 
 
 def slug(*parts: str) -> str:
@@ -192,10 +195,14 @@ def divergence_pair(
     i, j, dist = pair
     (name_x, x), (name_y, y) = quantities[i], quantities[j]
     # The quantity that separates more in one dimension goes on the vertical axis.
+    others = np.flatnonzero(~divergent)
+    step = max(1, int(np.ceil(others.size / SCATTER_MAX_OTHER)))
+    shown = others[::step]
+    label = f"other draws ({others.size}" + (f", 1 in {step} shown)" if step > 1 else ")")
     with figure(height_in=3.6, width_in=5.2) as fig:
         ax = fig.add_subplot()
-        ax.scatter(x[~divergent], y[~divergent], s=5, color=MUTED, alpha=0.45, linewidths=0,
-                   label=f"other draws ({int((~divergent).sum())})")
+        ax.scatter(x[shown], y[shown], s=5, color=MUTED, alpha=0.45, linewidths=0,
+                   label=label)
         ax.scatter(x[divergent], y[divergent], s=16, color=ACCENT, alpha=0.95,
                    edgecolors="white", linewidths=0.4,
                    label=f"divergent ({int(divergent.sum())})")

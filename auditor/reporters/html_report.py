@@ -18,6 +18,7 @@ from auditor.result import AuditResult
 FORMAT = "html"
 FILENAME = "audit.html"
 TEMPLATE = "report.html.j2"
+SCREEN_FIGURE_SCALE = 1.3
 
 
 def environment() -> jinja2.Environment:
@@ -34,7 +35,9 @@ def environment() -> jinja2.Environment:
 
 def render(result: AuditResult, *, print_mode: bool = False, page_size: str = "A4") -> str:
     """The report as an HTML string; ``print_mode`` adds the print styles and opens details."""
-    view = build_view(result)
+    # On screen figures may grow a little past their natural size; in print they keep it
+    # (it was chosen to fit the A4 and Letter text block).
+    view = build_view(result, figure_scale=1.0 if print_mode else SCREEN_FIGURE_SCALE)
     template = environment().get_template(TEMPLATE)
     return template.render(v=view, print=print_mode, page_size=page_size,
                            stage_order=list(view.stage_order))

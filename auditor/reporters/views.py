@@ -133,6 +133,7 @@ class FindingView:
     evidence: tuple[tuple[str, str], ...]
     excerpt: tuple[ExcerptLine, ...]
     figures: tuple[FigureRef, ...] = ()
+    analysis: str = ""
 
 
 @dataclass(frozen=True)
@@ -283,8 +284,9 @@ def _figures_for(f: Finding, figures: tuple[FigureView, ...],
 class _Builder:
     """Builds the views of one result; keeps the rule table and anchor counters."""
 
-    def __init__(self, result: AuditResult) -> None:
+    def __init__(self, result: AuditResult, figure_scale: float) -> None:
         self.result = result
+        self.figure_scale = figure_scale
         self.rules: dict[str, Any] = {}
         for rule in result.rules:
             self.rules[rule.id] = rule
@@ -325,6 +327,7 @@ class _Builder:
             evidence=tuple((str(k), fmt_value(v)) for k, v in f.evidence.items()),
             excerpt=excerpt,
             figures=refs,
+            analysis=f.analysis or "",
         )
 
     def stages(self, findings: list[Finding], prefix: str, a: AnalysisResult | None,
@@ -390,7 +393,8 @@ class _Builder:
                 continue
             anchor = f"{prefix}-g{len(views) + 1}"
             try:
-                svg = Markup(inline_svg(fig.svg, anchor))  # sanitized: see figures.inline
+                # Sanitized: see auditor.figures.inline.
+                svg = Markup(inline_svg(fig.svg, anchor, self.figure_scale))
             except UnsafeSvgError as exc:
                 problems.append(str(exc))
                 continue
@@ -430,9 +434,13 @@ class _Builder:
         )
 
 
-def build_view(result: AuditResult, top: int = 10) -> ReportView:
-    """The whole report as views; ``top`` findings (worst first) for short summaries."""
-    b = _Builder(result)
+def build_view(result: AuditResult, top: int = 10, figure_scale: float = 1.0) -> ReportView:
+    """The whole report as views.
+
+    ``top`` findings (worst first) are picked for short summaries; figures may be
+    shown up to ``figure_scale`` times their natural size (screen: larger, print: 1).
+    """
+    b = _Builder(result, figure_scale)
     analyses = tuple(b.analysis(a, i) for i, a in enumerate(result.analyses, start=1))
     project_stages = b.stages(result.project_findings, "p", None)
     every = [f for g in project_stages for f in g.findings] + [
