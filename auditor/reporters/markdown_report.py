@@ -115,7 +115,8 @@ def render(result: AuditResult) -> str:
         a.n_findings for a in view.analyses
     )
     return environment().get_template(TEMPLATE).render(
-        v=view, total=total, others=other_reports(result)
+        v=view, total=total, others=other_reports(result),
+        br=MdSafe("  "),  # a hard line break (two spaces) that the escaping must not eat
     )
 
 
