@@ -25,6 +25,7 @@ from auditor.figures.inline import inline_svg
 from auditor.findings import Finding
 from auditor.reporters import html_report
 from auditor.reporters.views import inline_code
+from tests.conftest import require_shared
 from tests.report_fixtures import centered_eight_path, demo_result, tool
 
 CHROMIUM_FLAGS = [
@@ -287,3 +288,49 @@ def test_inline_svg_keeps_drawing_and_drops_everything_active():
     assert 'id="fig1-c"' in out and 'clip-path="url(#fig1-c)"' in out
     assert 'xlink:href="#fig1-c"' in out
     assert 'width="150.0pt"' in out and "height" not in out.split(">", 1)[0]
+
+
+# --- reporting checklist -------------------------------------------------------------
+
+
+def test_checklist_prefilled_from_the_cmdstan_header():
+    """Chains, warmup, draws and software come from the files; the rest is marked unknown.
+
+    Expected values are read here straight from the shared CmdStan file's header
+    (written by CmdStan 2.18), not from our loader.
+    """
+    from auditor.reporters.checklist import UNKNOWN, build_checklist
+    from tests.report_fixtures import eight_schools_nc_result
+
+    folder = require_shared() / "cmdstan-outputs" / "arviz-eight-schools-nc"
+    header = (folder / "eight_schools_output1.csv").read_text().split("\nlp__", 1)[0]
+    warmup = re.search(r"num_warmup = (\d+)", header).group(1)
+    samples = re.search(r"num_samples = (\d+)", header).group(1)
+    minor = re.search(r"stan_version_minor = (\d+)", header).group(1)
+    result = eight_schools_nc_result()
+    items = {it.topic: it for it in build_checklist(result, result.analyses[0])}
+    # Kruschke (2021): software, chains, warmup, priors, predictive checks, convergence of
+    # every reported quantity, sensitivity, availability of code, data and chains.
+    assert len(items) == 9
+    assert f"2.{minor}" in items["Software and versions"].seen
+    assert items["Number of chains"].seen.startswith(f"{len(list(folder.glob('*.csv')))} chains")
+    assert f"{warmup} warmup" in items["Warmup and kept draws"].seen
+    assert f"{samples} kept draws" in items["Warmup and kept draws"].seen
+    assert UNKNOWN in items["Sensitivity analysis (priors, likelihood)"].missing
+    assert items["Sensitivity analysis (priors, likelihood)"].status == "unknown"
+    conv = items["Convergence diagnostics for every reported quantity"]
+    assert conv.status == "attention" and "sampling.rhat" in conv.flags
+
+
+def test_checklist_and_repro_footer_in_the_page(demo_html):
+    _, html = demo_html
+    result = demo_result()
+    assert html.count('<details class="checklist-box"') == len(result.analyses)
+    assert "Kruschke" in html and "cannot be known from the files" in html
+    footer = html.split('<footer class="repro"', 1)[1]
+    for i in result.inputs:
+        assert i.sha256 in footer
+    for name, version in result.libraries.items():
+        assert f"<th scope=\"row\">{name}</th><td>{version}</td>" in footer
+    # The caution stands before the first finding (escaped as HTML text).
+    assert str(escape(result.caution)) in html.split("<article", 1)[0]

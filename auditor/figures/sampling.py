@@ -16,6 +16,7 @@ Numbers come from arviz-stats where it has them (ranks, E-BFMI).
 
 from __future__ import annotations
 
+import importlib.util
 import re
 from collections.abc import Callable, Sequence
 from typing import TYPE_CHECKING, Any
@@ -278,6 +279,10 @@ def _one_based(ctx: RuleContext) -> bool:
 
 
 def _max_figures(ctx: RuleContext) -> int:
+    # Without matplotlib (a minimal install without the ``report`` extra) there are no
+    # figures; the audit and every other report work without them.
+    if importlib.util.find_spec("matplotlib") is None:
+        return 0
     return max(0, int(ctx.options.get("max_figures", 4)))
 
 

@@ -100,7 +100,16 @@ def _draws(a: AnalysisResult) -> ChecklistItem:
 
 
 def _priors(a: AnalysisResult) -> ChecklistItem:
-    seen = f"priors are stated in the model program {a.program}" if a.program else ""
+    # ``priors`` (one text per prior statement) is used when the engine records it.
+    stated = getattr(a, "priors", None) or a.settings.get("priors")
+    if stated:
+        listed = "; ".join(str(p) for p in stated[:12])
+        more = f"; and {len(stated) - 12} more" if len(stated) > 12 else ""
+        seen = f"priors stated in the model program: {listed}{more}"
+    elif a.program:
+        seen = f"priors are stated in the model program {a.program}"
+    else:
+        seen = ""
     missing = (
         f"why each prior was chosen {UNKNOWN}; justify each one (and show a prior predictive "
         "check)" if a.program else

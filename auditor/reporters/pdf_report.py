@@ -13,6 +13,7 @@ can end up in the PDF even if a name from the audited files slipped through.
 
 from __future__ import annotations
 
+import importlib.util
 import json
 import os
 import subprocess
@@ -90,8 +91,11 @@ def render_html_to_pdf(html: str, allowed: frozenset[str] = frozenset()) -> Rend
     Raises
     ------
     RuntimeError
-        When the layout process fails (its error output is in the message).
+        When weasyprint is not installed, or the layout process fails (its error
+        output is in the message).
     """
+    if importlib.util.find_spec("weasyprint") is None:
+        raise RuntimeError("PDF reports need weasyprint: pip install 'bayes-auditor[report]'")
     with tempfile.TemporaryDirectory(prefix="bayes-auditor-pdf-") as tmp:
         job = Path(tmp) / "job.json"
         out = Path(tmp) / "out.pdf"

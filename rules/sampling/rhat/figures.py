@@ -3,9 +3,12 @@
 from __future__ import annotations
 
 from auditor.figures.sampling import flagged_traces
+from auditor.findings import Finding
+from auditor.result import Figure
+from auditor.rules_api import RuleContext
 
 
-def figures(ctx, findings):
+def figures(ctx: RuleContext, findings: list[Finding]) -> list[Figure]:
     """At most ``ctx.options["max_figures"]`` trace/rank figures, largest R-hat first."""
     limit = float(ctx.thresholds.get("max_rhat", 1.01))
     return flagged_traces(
