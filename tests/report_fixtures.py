@@ -83,11 +83,18 @@ def unsafe_result(**overrides: object) -> AuditResult:
 
 
 def pinned(result: AuditResult) -> AuditResult:
-    """A copy with library and tool versions pinned, for golden files that outlive upgrades."""
+    """A copy for golden files: library and tool versions pinned, and only the rules that hit.
+
+    Golden files check the report format; pinning keeps them valid across library
+    upgrades and across rules added elsewhere (the full rule list is checked by
+    tests/test_report_sarif.py::test_every_rule_is_described).
+    """
+    hit = {f.rule_id for f in result.all_findings}
     return dataclasses.replace(
         result,
         version="0.0.0+gold",
         libraries={name: "(pinned)" for name in result.libraries},
+        rules=[r for r in result.rules if r.id in hit],
     )
 
 
