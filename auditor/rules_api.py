@@ -80,6 +80,21 @@ class RuleContext:
             quantity=quantity,
         )
 
+    def location_of(self, item: Any) -> Location | None:
+        """Place of a program declaration or statement (``line``, ``column``, ``path``).
+
+        Items written in an ``#include``d file carry that file's ``path``; others
+        point into the analysis's program.
+        """
+        path = getattr(item, "path", "")
+        if path:
+            return Location(self.project.relpath(path), item.line, item.column)
+        return self.program_location(item.line, item.column)
+
+    def pick_severity(self, computed: Severity) -> Severity:
+        """The severity a check computed, unless the user configured another one."""
+        return self.severity if self.severity != self.rule.severity else computed
+
     def program_location(self, line: int | None, column: int | None = None) -> Location | None:
         """Location in the analysis's model program, or ``None`` without one."""
         prog = self.analysis.program

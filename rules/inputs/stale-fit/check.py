@@ -15,7 +15,7 @@ from typing import Any
 
 import numpy as np
 
-from auditor.findings import Finding, Location, Severity
+from auditor.findings import Finding, Severity
 from auditor.programs.summary import Declaration
 from auditor.rules_api import RuleContext
 
@@ -24,13 +24,6 @@ _SQUARE = {"cov_matrix", "corr_matrix", "cholesky_factor_corr"}
 #: Types whose draws shape cannot be told from the dims text alone.
 _UNSHAPED = {"cholesky_factor_cov", "complex", "complex_vector", "complex_row_vector",
              "complex_matrix", "tuple"}
-
-
-def _where(ctx: RuleContext, item: Any) -> Location | None:
-    """Place of a statement or declaration, in the included file it was written in."""
-    if getattr(item, "path", ""):
-        return Location(ctx.project.relpath(item.path), item.line, item.column)
-    return ctx.program_location(item.line, item.column)
 
 
 def _eval_size(text: str, data: dict[str, Any]) -> int | None:
@@ -118,7 +111,7 @@ def check(ctx: RuleContext) -> Iterable[Finding]:
                     f"Parameter `{decl.name}` is declared in the program but absent from "
                     "the draws, so they did not come from this program.",
                     evidence={"variable": decl.name, "problem": "missing"},
-                    quantity=decl.name, location=_where(ctx, decl)))
+                    quantity=decl.name, location=ctx.location_of(decl)))
             continue
         got = _shape(post[decl.name])
         # A scalar stored as a length-1 vector (or the reverse) is a loader's choice.
@@ -134,5 +127,5 @@ def check(ctx: RuleContext) -> Iterable[Finding]:
                       "declared_dims": dims,
                       "declared_shape": "x".join(map(str, expected)) or "scalar",
                       "draws_shape": "x".join(map(str, got)) or "scalar"},
-            quantity=decl.name, location=_where(ctx, decl)))
+            quantity=decl.name, location=ctx.location_of(decl)))
     return findings

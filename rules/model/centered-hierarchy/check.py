@@ -3,23 +3,15 @@
 from __future__ import annotations
 
 from collections.abc import Iterable
-from typing import Any
 
 import numpy as np
 
-from auditor.findings import Finding, Location, Severity
+from auditor.findings import Finding, Severity
 from auditor.rules_api import RuleContext
 
 #: Location-scale families in which a parameter scale makes the funnel.
 _FAMILIES = {"normal", "student_t", "cauchy", "double_exponential", "logistic"}
 _PARAM_BLOCKS = ("parameters", "transformed parameters")
-
-
-def _where(ctx: RuleContext, item: Any) -> Location | None:
-    """Place of a statement or declaration, in the included file it was written in."""
-    if getattr(item, "path", ""):
-        return Location(ctx.project.relpath(item.path), item.line, item.column)
-    return ctx.program_location(item.line, item.column)
 
 
 def _divergences(ctx: RuleContext) -> int | None:
@@ -70,7 +62,7 @@ def check(ctx: RuleContext) -> Iterable[Finding]:
                           "scale_parameters": ", ".join(scale_params),
                           "divergences": n_div, "max_divergences": max_div},
                 quantity=decl.name,
-                location=_where(ctx, dist),
+                location=ctx.location_of(dist),
                 severity=severity,
             ))
     return findings

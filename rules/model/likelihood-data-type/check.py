@@ -7,7 +7,7 @@ from typing import Any
 
 import numpy as np
 
-from auditor.findings import Finding, Location
+from auditor.findings import Finding
 from auditor.programs.summary import Likelihood
 from auditor.rules_api import RuleContext
 
@@ -15,13 +15,6 @@ from auditor.rules_api import RuleContext
 _UNBOUNDED = {"normal", "student_t", "cauchy", "logistic", "double_exponential",
               "skew_normal", "gumbel", "normal_id_glm", "exp_mod_normal",
               "skew_double_exponential"}
-
-
-def _where(ctx: RuleContext, item: Any) -> Location | None:
-    """Place of a statement or declaration, in the included file it was written in."""
-    if getattr(item, "path", ""):
-        return Location(ctx.project.relpath(item.path), item.line, item.column)
-    return ctx.program_location(item.line, item.column)
 
 
 def _observed(ctx: RuleContext, lik: Likelihood, n_liks: int) -> np.ndarray | None:
@@ -86,7 +79,7 @@ def check(ctx: RuleContext) -> Iterable[Finding]:
                       "mean": float(y.mean()), "sd": float(np.std(y, ddof=1)),
                       "suggested": suggestion},
             quantity=lik.variable,
-            location=_where(ctx, dist),
+            location=ctx.location_of(dist),
             fix=f"Model `{lik.variable}` with a {suggestion} likelihood, which only gives "
                 "values the data can take.",
         ))

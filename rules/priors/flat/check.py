@@ -3,25 +3,12 @@
 from __future__ import annotations
 
 from collections.abc import Iterable
-from typing import Any
 
-from auditor.findings import Finding, Location, Severity
+from auditor.findings import Finding, Severity
 from auditor.rules_api import RuleContext
 
 _PRIOR_BLOCKS = ("parameters", "transformed parameters")
 _IMPROPER = {"flat": "(-inf, +inf)", "half_flat": "(0, +inf)"}
-
-
-def _where(ctx: RuleContext, item: Any) -> Location | None:
-    """Place of a statement or declaration, in the included file it was written in."""
-    if getattr(item, "path", ""):
-        return Location(ctx.project.relpath(item.path), item.line, item.column)
-    return ctx.program_location(item.line, item.column)
-
-
-def _severity(ctx: RuleContext, computed: Severity) -> Severity:
-    # A severity set by the user in the configuration wins over the computed one.
-    return ctx.severity if ctx.severity != ctx.rule.severity else computed
 
 
 def check(ctx: RuleContext) -> Iterable[Finding]:
@@ -35,7 +22,7 @@ def check(ctx: RuleContext) -> Iterable[Finding]:
         if decl.block not in _PRIOR_BLOCKS:
             continue
         for dist in decl.priors:
-            loc = _where(ctx, dist)
+            loc = ctx.location_of(dist)
             if dist.family in _IMPROPER:
                 findings.append(
                     ctx.finding(
@@ -45,7 +32,7 @@ def check(ctx: RuleContext) -> Iterable[Finding]:
                                   "proper": False},
                         quantity=decl.name,
                         location=loc,
-                        severity=_severity(ctx, Severity.ERROR),
+                        severity=ctx.pick_severity(Severity.ERROR),
                     )
                 )
                 continue
@@ -64,7 +51,7 @@ def check(ctx: RuleContext) -> Iterable[Finding]:
                                   "upper": hi, "width": width, "max_width": max_width},
                         quantity=decl.name,
                         location=loc,
-                        severity=_severity(ctx, Severity.WARNING),
+                        severity=ctx.pick_severity(Severity.WARNING),
                     )
                 )
     return findings

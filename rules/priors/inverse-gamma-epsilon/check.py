@@ -3,20 +3,12 @@
 from __future__ import annotations
 
 from collections.abc import Iterable
-from typing import Any
 
-from auditor.findings import Finding, Location
+from auditor.findings import Finding
 from auditor.rules_api import RuleContext
 
 _PRIOR_BLOCKS = ("parameters", "transformed parameters")
 _WHAT = {"inv_gamma": "a variance", "gamma": "a precision"}
-
-
-def _where(ctx: RuleContext, item: Any) -> Location | None:
-    """Place of a statement or declaration, in the included file it was written in."""
-    if getattr(item, "path", ""):
-        return Location(ctx.project.relpath(item.path), item.line, item.column)
-    return ctx.program_location(item.line, item.column)
 
 
 def check(ctx: RuleContext) -> Iterable[Finding]:
@@ -42,6 +34,6 @@ def check(ctx: RuleContext) -> Iterable[Finding]:
                 evidence={"parameter": decl.name, "family": dist.family, "shape": a,
                           "second_arg": b, "max_eps": max_eps},
                 quantity=decl.name,
-                location=_where(ctx, dist),
+                location=ctx.location_of(dist),
             ))
     return findings

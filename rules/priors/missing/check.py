@@ -3,9 +3,8 @@
 from __future__ import annotations
 
 from collections.abc import Iterable
-from typing import Any
 
-from auditor.findings import Finding, Location, Severity
+from auditor.findings import Finding, Severity
 from auditor.rules_api import RuleContext
 
 # Constrained types whose implicit uniform prior is proper: their support is bounded
@@ -15,18 +14,6 @@ _COMPACT_TYPES = {"simplex", "unit_vector", "corr_matrix", "cholesky_factor_corr
 _TYPE_RANGE = {"positive_ordered": "(0, +inf)", "cov_matrix": "the covariance matrices",
                "cholesky_factor_cov": "the Cholesky factors of covariance matrices",
                "sum_to_zero_vector": "the sum-to-zero vectors"}
-
-
-def _where(ctx: RuleContext, item: Any) -> Location | None:
-    """Place of a statement or declaration, in the included file it was written in."""
-    if getattr(item, "path", ""):
-        return Location(ctx.project.relpath(item.path), item.line, item.column)
-    return ctx.program_location(item.line, item.column)
-
-
-def _severity(ctx: RuleContext, computed: Severity) -> Severity:
-    # A severity set by the user in the configuration wins over the computed one.
-    return ctx.severity if ctx.severity != ctx.rule.severity else computed
 
 
 def check(ctx: RuleContext) -> Iterable[Finding]:
@@ -69,8 +56,8 @@ def check(ctx: RuleContext) -> Iterable[Finding]:
                     "multiplier": decl.multiplier,
                 },
                 quantity=decl.name,
-                location=_where(ctx, decl),
-                severity=_severity(ctx, Severity.WARNING if bounded else Severity.ERROR),
+                location=ctx.location_of(decl),
+                severity=ctx.pick_severity(Severity.WARNING if bounded else Severity.ERROR),
             )
         )
     return findings

@@ -12,7 +12,7 @@ from typing import Any
 
 import numpy as np
 
-from auditor.findings import Finding, Location, Severity
+from auditor.findings import Finding, Severity
 from auditor.programs.summary import Bound, Declaration, Distribution
 from auditor.rules_api import RuleContext
 
@@ -32,18 +32,6 @@ _TYPE_SUPPORT = {"simplex": (0.0, 1.0), "unit_vector": (-1.0, 1.0),
                  "positive_ordered": (0.0, INF)}
 _SKIP_TYPES = {"cov_matrix", "corr_matrix", "cholesky_factor_corr", "cholesky_factor_cov",
                "complex", "tuple"}
-
-
-def _where(ctx: RuleContext, item: Any) -> Location | None:
-    """Place of a statement or declaration, in the included file it was written in."""
-    if getattr(item, "path", ""):
-        return Location(ctx.project.relpath(item.path), item.line, item.column)
-    return ctx.program_location(item.line, item.column)
-
-
-def _severity(ctx: RuleContext, computed: Severity) -> Severity:
-    # A severity set by the user in the configuration wins over the computed one.
-    return ctx.severity if ctx.severity != ctx.rule.severity else computed
 
 
 def _literal(text: str | None, data: dict[str, Any]) -> float | None:
@@ -173,7 +161,7 @@ def check(ctx: RuleContext) -> Iterable[Finding]:
                           "declared_lower": _finite(d_lo), "declared_upper": _finite(d_hi),
                           "prior_lower": _finite(p_lo), "prior_upper": _finite(p_hi)},
                 quantity=decl.name,
-                location=_where(ctx, dist),
-                severity=_severity(ctx, severity),
+                location=ctx.location_of(dist),
+                severity=ctx.pick_severity(severity),
             ))
     return findings

@@ -20,7 +20,7 @@ from typing import Any
 
 import numpy as np
 
-from auditor.findings import Finding, Location
+from auditor.findings import Finding
 from auditor.programs.summary import Distribution, Likelihood, ProgramSummary
 from auditor.rules_api import RuleContext
 
@@ -45,13 +45,6 @@ _GLM_FAMILIES = {"normal_id_glm": False, "bernoulli_logit_glm": True, "poisson_l
                  "neg_binomial_2_log_glm": True, "categorical_logit_glm": True}
 _OUTCOME_FAMILIES = {"normal", "student_t", "cauchy", "logistic", "double_exponential",
                      "skew_normal", "gumbel"}
-
-
-def _where(ctx: RuleContext, item: Any) -> Location | None:
-    """Place of a statement or declaration, in the included file it was written in."""
-    if getattr(item, "path", ""):
-        return Location(ctx.project.relpath(item.path), item.line, item.column)
-    return ctx.program_location(item.line, item.column)
 
 
 def _prior_scale(dist: Distribution) -> float | None:
@@ -273,7 +266,7 @@ def check(ctx: RuleContext) -> Iterable[Finding]:
             prior_scale = _prior_scale(dist)
             if prior_scale is None or prior_scale <= 0:
                 continue
-            loc = _where(ctx, dist)
+            loc = ctx.location_of(dist)
             shown = f"{dist.family}({', '.join(a.text for a in dist.args)})"
             if decl.name in scales.by_name:
                 data_scale, how = scales.by_name[decl.name]
