@@ -7,7 +7,7 @@ from collections.abc import Iterator
 
 import numpy as np
 
-from auditor.findings import Finding
+from auditor.findings import Finding, Location
 from auditor.rules_api import RuleContext
 
 
@@ -47,3 +47,16 @@ def sample_stat(ctx: RuleContext, name: str) -> np.ndarray | None:
     if ds is None or name not in ds.data_vars:
         return None
     return np.asarray(ds[name].transpose("chain", "draw", ...).values)
+
+
+def problem_findings(ctx: RuleContext, kind: str) -> Iterator[Finding]:
+    """One finding per input problem of ``kind`` recorded while loading the analysis."""
+    for p in ctx.analysis.problems:
+        if p.kind != kind:
+            continue
+        path = ctx.project.relpath(p.path)
+        yield ctx.finding(
+            f"{path}" + (f", line {p.line}" if p.line else "") + f": {p.message}",
+            evidence={"file": path, "line": p.line},
+            location=Location(path, p.line),
+        )
