@@ -17,6 +17,7 @@ from __future__ import annotations
 
 import math
 import re
+import warnings
 from collections import Counter
 from collections.abc import Sequence
 from dataclasses import dataclass, field
@@ -309,9 +310,15 @@ def _parse_rows(
     good_numbers = [n for n, u in zip(numbers, used, strict=True) if u]
     if not good:
         return np.empty((0, n_cols)), used
+    # numpy's C parser reads the joined text without making one Python string per
+    # field (a list of strings costs several times the memory of the numbers).
     try:
-        flat = np.array(",".join(good).split(","), dtype=float)
-    except ValueError:
+        with warnings.catch_warnings():
+            warnings.simplefilter("error")
+            flat = np.fromstring(",".join(good), dtype=float, sep=",")
+    except (ValueError, DeprecationWarning):
+        flat = None
+    if flat is None or flat.size != len(good) * n_cols:
         return _parse_rows_slowly(path, good, good_numbers, n_cols, problems), used
     return flat.reshape(len(good), n_cols), used
 
