@@ -98,7 +98,7 @@ def test_findings_in_workflow_order_with_evidence_fix_and_rationale(demo_html):
     rules = {r.id: r for r in result.rules}
     for i, a in enumerate(result.analyses, start=1):
         expected = sorted(a.findings, key=Finding.sort_key)
-        section = html.split(f'id="a{i}"', 1)[1].split('<section class="analysis"', 1)[0]
+        section = html.split(f'id="a{i}"', 1)[1].split('<section class="analysis', 1)[0]
         shown = re.findall(r'<code class="rule-id">([^<]+)</code>', section)
         assert shown == [f.rule_id for f in expected]
         for f in expected:
@@ -131,7 +131,7 @@ def test_diagnostics_table_flagged_rows_first_and_collapsible(demo_html):
     result = demo_result()
     i, a = next((i, a) for i, a in enumerate(result.analyses, start=1)
                 if any(f.quantity for f in a.findings if f.stage == "sampling"))
-    section = html.split(f'id="a{i}"', 1)[1].split('<section class="analysis"', 1)[0]
+    section = html.split(f'id="a{i}"', 1)[1].split('<section class="analysis', 1)[0]
     tables = section.split('<table class="grid diag">')
     flagged_table = tables[1]
     named = {f.quantity for f in a.findings if f.quantity}
@@ -334,3 +334,45 @@ def test_checklist_and_repro_footer_in_the_page(demo_html):
         assert f"<th scope=\"row\">{name}</th><td>{version}</td>" in footer
     # The caution stands before the first finding (escaped as HTML text).
     assert str(escape(result.caution)) in html.split("<article", 1)[0]
+
+
+def test_project_findings_have_their_own_section(tmp_path):
+    import shutil
+
+    from auditor.engine import run_audit
+    from auditor.reporters import sarif_report
+    from tests.report_fixtures import UNSAFE
+
+    project = tmp_path / "proj"
+    shutil.copytree(UNSAFE, project)
+    manifest = project / "bayes-auditor.toml"
+    manifest.write_text('gatee = "error"\n' + manifest.read_text(encoding="utf-8"))
+    result = run_audit([project])
+    assert [f.rule_id for f in result.project_findings] == ["inputs.config"]
+    html = html_report.render(result)
+    project_part = html.split('<section class="analysis project-level"', 1)[1].split(
+        "</section>\n</section>", 1)[0]
+    assert "gatee" in project_part and "inputs.config" in project_part
+    sarif = sarif_report.build(result)["runs"][0]["results"]
+    assert sarif[0]["ruleId"] == "inputs.config"  # project findings come first
+    loc = sarif[0]["locations"][0]["physicalLocation"]["artifactLocation"]
+    assert loc["uri"] == "bayes-auditor.toml"
+
+
+def test_best_pair_finds_the_separating_pair():
+    """Constructed draws: divergences sit at low values of quantities 1 and 3 only."""
+    from auditor.figures.sampling import best_pair
+
+    rng = np.random.default_rng(7)
+    n = 2000
+    draws = rng.normal(size=(n, 5))
+    divergent = np.zeros(n, dtype=bool)
+    divergent[:60] = True
+    draws[:60, 1] -= 2.0
+    draws[:60, 3] -= 1.5
+    quantities = [(f"q{k}", draws[:, k]) for k in range(5)]
+    i, j, dist = best_pair(quantities, divergent)
+    assert {i, j} == {1, 3}
+    # Mahalanobis distance of the mean shift (2, 1.5) under unit covariance: 2.5.
+    assert dist == pytest.approx(2.5, abs=0.3)
+    assert best_pair(quantities, np.zeros(n, dtype=bool)) is None
