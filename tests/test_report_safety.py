@@ -102,7 +102,7 @@ def test_pdf_embeds_nothing_from_the_file_system(tmp_path):
 def test_same_input_same_bytes(tmp_path):
     # Two independent audits of the same files, each written out.
     first, second = (run_audit([UNSAFE]) for _ in range(2))
-    for module in (html_report, markdown_report, sarif_report):
+    for module in (html_report, markdown_report, sarif_report, pdf_report):
         a = module.write(first, tmp_path / "one").read_bytes()
         b = module.write(second, tmp_path / "two").read_bytes()
         assert a == b, module.FORMAT

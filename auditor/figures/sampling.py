@@ -361,9 +361,9 @@ def energy_figures(ctx: RuleContext, findings: list[Finding]) -> list[Figure]:
         return []
     import arviz_stats as azs
 
-    da = stats["energy"].transpose("chain", "draw")
-    if da.sizes["draw"] < 3:
-        return []
+    da = stats["energy"].transpose("chain", "draw").astype(float)
+    if da.sizes["draw"] < 3 or not np.all(np.isfinite(da.values)):
+        return []  # E-BFMI is undefined with missing energies; the check reports that
     bfmi = np.asarray(azs.bfmi(da.to_dataset(name="energy"), group=None)["energy"].values,
                       dtype=float).reshape(-1)
     threshold = next(

@@ -56,6 +56,8 @@ def fmt_value(value: Any) -> str:
     """Evidence value as text: floats to 4 significant digits, lists joined."""
     if value is None:
         return DASH
+    if hasattr(value, "item") and callable(value.item) and getattr(value, "ndim", 1) == 0:
+        value = value.item()  # a numpy scalar
     if isinstance(value, bool):
         return "yes" if value else "no"
     if isinstance(value, int):
