@@ -213,7 +213,7 @@ def divergence_pair(
         ax.legend(loc="best", markerscale=1.5)
         svg = to_svg(fig, fig_id)
     caption = (
-        f"All draws of {name_x} and {name_y}, the pair in which the divergent draws lie "
+        f"Draws of {name_x} and {name_y}, the pair in which the divergent draws lie "
         f"farthest from the others (standardized distance between the two groups' means "
         f"{dist:.2f}). Divergences gathered in one region point to geometry the sampler cannot "
         "follow there, such as the narrow neck of a hierarchical funnel."
