@@ -39,12 +39,12 @@ def _rewrite_urls(value: str, prefix: str) -> str | None:
     return _URL.sub(lambda m: f"url(#{prefix}-{m.group(1)[1:]})", value)
 
 
-def inline_svg(svg: str, prefix: str, scale: float = 1.0) -> str:
+def inline_svg(svg: str, prefix: str, scale: float = 1.0, label: str = "") -> str:
     """Return ``svg`` as a sanitized ``<svg>`` element string with ids prefixed by ``prefix``.
 
     The height attribute is dropped and the width becomes ``scale`` times the
     natural width (the page's style sheet lets the figure shrink below it; the
-    ``viewBox`` keeps the aspect ratio).
+    ``viewBox`` keeps the aspect ratio). ``label`` becomes the figure's ``aria-label``.
 
     Raises
     ------
@@ -94,4 +94,6 @@ def inline_svg(svg: str, prefix: str, scale: float = 1.0) -> str:
         root.set("width", f"{float(m.group(1)) * scale:.1f}{m.group(2) or 'px'}")
     root.set("id", f"{prefix}-svg")
     root.set("role", "img")
+    if label:
+        root.set("aria-label", label)  # escaped by the serializer
     return ET.tostring(root, encoding="unicode")

@@ -396,7 +396,7 @@ class _Builder:
             anchor = f"{prefix}-g{len(views) + 1}"
             try:
                 # Sanitized: see auditor.figures.inline.
-                svg = Markup(inline_svg(fig.svg, anchor, self.figure_scale))
+                svg = Markup(inline_svg(fig.svg, anchor, self.figure_scale, fig.title))
             except UnsafeSvgError as exc:
                 problems.append(str(exc))
                 continue
