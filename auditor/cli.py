@@ -104,6 +104,9 @@ def _cmd_audit(args: argparse.Namespace) -> int:
     except OSError as exc:
         print(f"{TOOL_NAME}: cannot write reports to {out_dir}: {exc.strerror}", file=sys.stderr)
         return EXIT_NOTHING
+    except RuntimeError as exc:  # a reporter's missing optional library (weasyprint)
+        print(f"{TOOL_NAME}: {exc}", file=sys.stderr)
+        return EXIT_NOTHING
     sys.stdout.write(render(result, colour=use_colour(sys.stdout), written=written))
     return result.exit_status
 

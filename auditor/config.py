@@ -23,6 +23,7 @@ DEFAULTS: dict[str, Any] = {
     "out": "audit-report",
     "max_figures": 4,
     "max_table_rows": 1000,
+    "page_size": "A4",
 }
 
 TOP_KEYS = frozenset(DEFAULTS) | {"rules", "analysis"}
@@ -41,6 +42,7 @@ ANALYSIS_KEYS = frozenset(
 )
 RULE_KEYS = frozenset({"enabled", "severity"})
 REPORT_FORMATS = ("json", "html", "pdf", "md", "sarif")
+PAGE_SIZES = ("A4", "letter")
 
 
 class ConfigError(Exception):
@@ -61,6 +63,7 @@ class Config:
     out: str = "audit-report"
     max_figures: int = 4
     max_table_rows: int = 1000
+    page_size: str = "A4"
     rules: dict[str, dict[str, Any]] = field(default_factory=dict)
     analyses: list[AnalysisSpec] = field(default_factory=list)
     source: Path | None = None
@@ -75,6 +78,7 @@ class Config:
             "out": self.out,
             "max_figures": self.max_figures,
             "max_table_rows": self.max_table_rows,
+            "page_size": self.page_size,
             "rules": {k: dict(sorted(v.items())) for k, v in sorted(self.rules.items())},
             "config_file": self.source.name if self.source else None,
         }
@@ -208,6 +212,10 @@ def _apply(cfg: Config, table: dict[str, Any], origin: str) -> None:
             if not isinstance(value, str):
                 raise ConfigError(f"{origin}: out must be a folder path")
             cfg.out = value
+        elif key == "page_size":
+            if value not in PAGE_SIZES:
+                raise ConfigError(f"{origin}: page_size must be one of {', '.join(PAGE_SIZES)}")
+            cfg.page_size = value
         elif key in ("max_figures", "max_table_rows"):
             if not isinstance(value, int) or isinstance(value, bool) or value < 0:
                 raise ConfigError(f"{origin}: {key} must be a whole number >= 0")

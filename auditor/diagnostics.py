@@ -19,7 +19,12 @@ TAIL_PROBS = (0.05, 0.95)
 COLUMNS = ("quantity", "variable", "rhat", "ess_bulk", "ess_tail", "mcse_mean", "mean", "sd")
 
 
-def _label(var: str, da: xr.DataArray, index: tuple, one_based: bool) -> str:
+def quantity_label(var: str, da: xr.DataArray, index: tuple, one_based: bool) -> str:
+    """Name of one scalar element: ``var`` or ``var[i,j]``.
+
+    Integer coordinates are written 1-based when ``one_based`` (Stan's convention,
+    matching CmdStan's ``var.i.j`` columns); label coordinates as their label.
+    """
     if not index:
         return var
     parts = []
@@ -93,7 +98,7 @@ class DiagnosticsTable:
                 constant = bool(finite.size and np.ptp(finite) == 0)
                 out.append(
                     {
-                        "quantity": _label(str(var), da, index, self.one_based),
+                        "quantity": quantity_label(str(var), da, index, self.one_based),
                         "variable": str(var),
                         "rhat": _finite(r[k]),
                         "ess_bulk": _finite(b[k]),

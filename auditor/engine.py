@@ -147,6 +147,19 @@ def _excerpts(analysis: Analysis, project: Project, findings: list[Finding]) -> 
     return out
 
 
+def _priors(analysis: Analysis, project: Project) -> list[str]:
+    prog = analysis.program
+    if prog is None:
+        return []
+    out = []
+    for decl in prog.declarations.values():
+        for dist in decl.priors:
+            path = project.relpath(getattr(dist, "path", "") or prog.path)
+            text = dist.text.strip() or f"{decl.name} ~ {dist.family}(...)"
+            out.append(f"{text} ({path}:{dist.line})")
+    return out
+
+
 def _audit_analysis(analysis: Analysis, project: Project, rules: list[RuleMeta],
                     cfg: Config) -> AnalysisResult:
     one_based = analysis.settings.library == "CmdStan"
@@ -185,6 +198,9 @@ def _audit_analysis(analysis: Analysis, project: Project, rules: list[RuleMeta],
         program=project.relpath(analysis.program.path) if analysis.program else None,
         figures=figures,
         excerpts=_excerpts(analysis, project, findings),
+        groups=sorted(n for n in (analysis.tree.children if analysis.tree is not None else {})
+                      if analysis.group(n) is not None),
+        priors=_priors(analysis, project),
     )
 
 

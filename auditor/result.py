@@ -52,6 +52,10 @@ class AnalysisResult:
     findings: list[Finding]
     program: str | None = None
     figures: list[Figure] = field(default_factory=list)
+    #: DataTree groups the analysis has (``posterior``, ``prior_predictive``, ...).
+    groups: list[str] = field(default_factory=list)
+    #: Each prior statement of the program as written, with its place ``path:line``.
+    priors: list[str] = field(default_factory=list)
     #: Source lines around each program finding, keyed ``"path:line"``:
     #: ``[(line number, text), ...]`` (the program stage's "flagged line in context").
     excerpts: dict[str, list[tuple[int, str]]] = field(default_factory=dict)

@@ -91,3 +91,11 @@ def test_invalid_files_raise_config_error_naming_the_file(tmp_path, text):
     with pytest.raises(ConfigError) as exc:
         load_config(root, None, {})
     assert str(root / "bayes-auditor.toml") in str(exc.value)
+
+
+def test_page_size_is_validated(tmp_path):
+    root = _project(tmp_path, 'page_size = "letter"\n')
+    assert load_config(root, None, {}).effective()["page_size"] == "letter"
+    (root / "bayes-auditor.toml").write_text('page_size = "A3"\n')
+    with pytest.raises(ConfigError):
+        load_config(root, None, {})

@@ -78,3 +78,18 @@ def test_a_failing_diagnostics_table_is_reported_once(monkeypatch):
     assert result.analyses[0].diagnostics == []
     # Rules that do not need the table still ran.
     assert any(f.rule_id == "sampling.divergences" for f in result.all_findings)
+
+
+def test_groups_and_prior_statements_are_recorded():
+    case = REPO / "rules" / "model" / "centered-hierarchy" / "cases" / "bad"
+    result = run_audit([case])
+    analysis = next(a for a in result.analyses if a.name == "case")
+    assert {"posterior", "sample_stats"} <= set(analysis.groups)
+    # Each prior statement as written in the program, with its file and line.
+    lines = (case / "model.stan").read_text().splitlines()
+    for text in analysis.priors:
+        statement, place = text.rsplit(" (", 1)
+        path, line = place.rstrip(")").rsplit(":", 1)
+        assert path == "model.stan"
+        assert statement.split("~")[0].strip() in lines[int(line) - 1]
+    assert any("theta ~ normal(mu, tau)" in p for p in analysis.priors)

@@ -13,18 +13,9 @@ from collections.abc import Iterator
 import numpy as np
 import xarray as xr
 
+from auditor.diagnostics import quantity_label
+
 _SAMPLE_DIMS = ("chain", "draw")
-
-
-def _index_label(da: xr.DataArray, index: tuple[int, ...], one_based: bool) -> str:
-    parts = []
-    for dim, i in zip([d for d in da.dims if d not in _SAMPLE_DIMS], index, strict=True):
-        coord = da.coords[dim].values[i] if dim in da.coords else i
-        if isinstance(coord, np.integer | int) and not isinstance(coord, bool):
-            parts.append(str(int(coord) + (1 if one_based else 0)))
-        else:
-            parts.append(str(coord))
-    return ",".join(parts)
 
 
 def iter_quantities(
@@ -41,7 +32,7 @@ def iter_quantities(
             yield str(var), values
             continue
         for index in np.ndindex(*shape):
-            label = f"{var}[{_index_label(da, index, one_based)}]"
+            label = quantity_label(str(var), da, index, one_based)
             yield label, values[(slice(None), slice(None), *index)]
 
 

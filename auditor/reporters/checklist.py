@@ -58,9 +58,8 @@ def _stage_flags(a: AnalysisResult, *stages: str) -> list[str]:
 
 
 def _groups(a: AnalysisResult) -> set[str] | None:
-    """DataTree groups of the analysis, when the engine recorded them."""
-    groups = getattr(a, "groups", None) or a.settings.get("groups")
-    return set(groups) if groups else None
+    """DataTree groups of the analysis (``None`` when it has no draws at all)."""
+    return set(a.groups) if a.groups else None
 
 
 def _software(result: AuditResult, a: AnalysisResult) -> ChecklistItem:
@@ -100,8 +99,7 @@ def _draws(a: AnalysisResult) -> ChecklistItem:
 
 
 def _priors(a: AnalysisResult) -> ChecklistItem:
-    # ``priors`` (one text per prior statement) is used when the engine records it.
-    stated = getattr(a, "priors", None) or a.settings.get("priors")
+    stated = a.priors
     if stated:
         listed = "; ".join(str(p) for p in stated[:12])
         more = f"; and {len(stated) - 12} more" if len(stated) > 12 else ""
