@@ -9,10 +9,10 @@ netCDF with the h5netcdf engine.
 Development only; needs the ``generate`` extra (pystan, pymc, nutpie), kept out
 of the main environment::
 
-    python -m venv /work/gen-venv
-    /work/gen-venv/bin/pip install pystan pymc nutpie h5netcdf
-    /work/gen-venv/bin/python examples/generate.py            # everything
-    /work/gen-venv/bin/python examples/generate.py data stan  # some steps
+    python3.12 -m venv ../gen-venv                 # outside the checkout
+    ../gen-venv/bin/pip install -e ".[generate]"
+    ../gen-venv/bin/python examples/generate.py            # everything
+    ../gen-venv/bin/python examples/generate.py data stan  # some steps
 
 Steps: ``data`` (simulate the data files), ``stan`` (pystan fits), ``pymc``
 (PyMC fits).
