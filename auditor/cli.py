@@ -86,7 +86,7 @@ def _cmd_explain(rule_id: str) -> int:
 
 def _cmd_audit(args: argparse.Namespace) -> int:
     from auditor.engine import NothingToAudit, project_root, run_audit
-    from auditor.reporters import write_reports
+    from auditor.reporters import ReportPathError, write_reports
     from auditor.reporters.terminal import render, use_colour
 
     paths = args.paths or [Path.cwd()]
@@ -101,6 +101,9 @@ def _cmd_audit(args: argparse.Namespace) -> int:
     out_dir = args.out if args.out is not None else root / result.config["out"]
     try:
         written = write_reports(result, formats, out_dir)
+    except ReportPathError as exc:
+        print(f"{TOOL_NAME}: {exc}", file=sys.stderr)
+        return EXIT_NOTHING
     except OSError as exc:
         print(f"{TOOL_NAME}: cannot write reports to {out_dir}: {exc.strerror}", file=sys.stderr)
         return EXIT_NOTHING

@@ -93,3 +93,17 @@ def test_groups_and_prior_statements_are_recorded():
         assert path == "model.stan"
         assert statement.split("~")[0].strip() in lines[int(line) - 1]
     assert any("theta ~ normal(mu, tau)" in p for p in analysis.priors)
+
+
+def test_a_link_in_place_of_a_report_file_is_not_followed(tmp_path, capsys):
+    from auditor.cli import main
+
+    project = tmp_path / "proj"
+    shutil.copytree(CASE, project)
+    victim = tmp_path / "precious.txt"
+    victim.write_text("keep me")
+    (project / "audit-report").mkdir()
+    (project / "audit-report" / "audit.json").symlink_to(victim)
+    assert main(["audit", str(project)]) == 2
+    assert victim.read_text() == "keep me"
+    assert "not overwritten" in capsys.readouterr().err

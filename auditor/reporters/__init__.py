@@ -32,4 +32,14 @@ def reporter(fmt: str) -> ModuleType:
 def write_reports(result: AuditResult, formats: list[str], out_dir: Path) -> list[Path]:
     """Write each requested format into ``out_dir``; return the files written."""
     out_dir.mkdir(parents=True, exist_ok=True)
-    return [reporter(fmt).write(result, out_dir) for fmt in dict.fromkeys(formats)]
+    modules = [reporter(fmt) for fmt in dict.fromkeys(formats)]
+    for module in modules:
+        target = out_dir / module.FILENAME
+        # Never write through a link: in an untrusted project it could point at any file.
+        if target.is_symlink() or (target.exists() and not target.is_file()):
+            raise ReportPathError(f"{target} is a link or not a regular file; not overwritten")
+    return [module.write(result, out_dir) for module in modules]
+
+
+class ReportPathError(Exception):
+    """A report file's path is taken by a link or a folder."""
