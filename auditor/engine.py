@@ -133,17 +133,25 @@ def _failure(what: str, analysis: Analysis | None, project: Project,
 
 def _excerpts(analysis: Analysis, project: Project, findings: list[Finding]) -> dict:
     prog = analysis.program
-    if prog is None or not prog.source_lines:
+    if prog is None:
         return {}
-    rel = project.relpath(prog.path)
+    # The program's own lines, and those of the files it #includes (findings can
+    # point into either).
+    sources: dict[str, list[str]] = {project.relpath(prog.path): prog.source_lines}
+    for inc in prog.includes:
+        try:
+            sources[project.relpath(inc)] = Path(inc).read_text(errors="replace").splitlines()
+        except OSError:
+            continue
     out: dict[str, list[tuple[int, str]]] = {}
     for f in findings:
         loc = f.location
-        if loc is None or loc.line is None or loc.path != rel:
+        lines = sources.get(loc.path) if loc is not None and loc.line is not None else None
+        if not lines:
             continue
         lo = max(1, loc.line - EXCERPT_RADIUS)
-        hi = min(len(prog.source_lines), loc.line + EXCERPT_RADIUS)
-        out[f"{loc.path}:{loc.line}"] = [(n, prog.source_lines[n - 1]) for n in range(lo, hi + 1)]
+        hi = min(len(lines), loc.line + EXCERPT_RADIUS)
+        out[f"{loc.path}:{loc.line}"] = [(n, lines[n - 1]) for n in range(lo, hi + 1)]
     return out
 
 

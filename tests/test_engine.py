@@ -107,3 +107,22 @@ def test_a_link_in_place_of_a_report_file_is_not_followed(tmp_path, capsys):
     assert main(["audit", str(project)]) == 2
     assert victim.read_text() == "keep me"
     assert "not overwritten" in capsys.readouterr().err
+
+
+def test_findings_in_an_included_file_get_its_excerpt(tmp_path):
+    (tmp_path / "model.stan").write_text(
+        "data {\n  int<lower=1> N;\n  vector[N] y;\n}\n"
+        "parameters {\n  real mu;\n  real<lower=0> sigma;\n}\n"
+        "model {\n#include priors.stan\n  y ~ normal(mu, sigma);\n}\n"
+    )
+    (tmp_path / "priors.stan").write_text("// shared priors\n  mu ~ normal(0, 1000);\n"
+                                          "  sigma ~ normal(0, 1);\n")
+    (tmp_path / "data.json").write_text('{"N": 4, "y": [0.1, -0.3, 0.2, 0.4]}')
+    (tmp_path / "bayes-auditor.toml").write_text(
+        '[[analysis]]\nname = "inc"\nmodel = "model.stan"\ndata = "data.json"\nobserved = "y"\n')
+    result = run_audit([tmp_path], only_rules={"priors.vague"})
+    (analysis,) = result.analyses
+    (hit,) = analysis.findings
+    assert (hit.location.path, hit.location.line) == ("priors.stan", 2)
+    excerpt = dict(analysis.excerpts["priors.stan:2"])
+    assert excerpt[2] == "  mu ~ normal(0, 1000);"
