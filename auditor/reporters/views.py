@@ -99,10 +99,9 @@ def _cell(value: Any, pattern: str) -> str:
 
 def option(result: AuditResult, key: str, default: int) -> int:
     """A report option from the effective settings (``result.config``), else ``default``."""
-    for table in (result.config.get("report_options") or {}, result.config):
-        value = table.get(key) if isinstance(table, dict) else None
-        if isinstance(value, int) and not isinstance(value, bool) and value >= 0:
-            return value
+    value = result.config.get(key)
+    if isinstance(value, int) and not isinstance(value, bool) and value >= 0:
+        return value
     return default
 
 
