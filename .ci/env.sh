@@ -21,11 +21,17 @@ if [ ! -x .venv/bin/python ] || ! .venv/bin/python -c 'import sys; sys.exit(sys.
     rm -rf .venv
     "$(pick_python)" -m venv .venv
 fi
-.venv/bin/python -m pip install -q --disable-pip-version-check --upgrade pip 2>&1 | grep -v '^WARNING: Location' || true
+pip_quiet() {
+    # pip's own errors stay visible; only this machine's index-location notices are dropped.
+    set +e
+    .venv/bin/python -m pip -q --disable-pip-version-check "$@" 2>&1 | grep -v '^WARNING: Location'
+    local status=${PIPESTATUS[0]}
+    set -e
+    return "$status"
+}
+pip_quiet install --upgrade pip || echo "note: pip could not be upgraded; going on with the one in .venv" >&2
 # hatchling is the build backend; installed here so the wheel test can build without isolation.
-.venv/bin/python -m pip install -q --disable-pip-version-check hatchling -e ".[${EXTRAS:-report,zarr}]" \
-    2>&1 | grep -v '^WARNING: Location' || true
-.venv/bin/python -c 'import auditor, arviz_stats, xarray' || {
-    echo "installation into .venv failed" >&2
+pip_quiet install hatchling -e ".[${EXTRAS:-report,zarr}]" || {
+    echo "installation into .venv failed (see pip's messages above)" >&2
     exit 1
 }
