@@ -5,7 +5,8 @@ CSV files are grouped into one analysis per run (same folder and file-name stem
 without the chain number; the loader checks that the chains agree); a Stan
 program pairs with the draws whose header says ``model = <stem>_model`` (the
 Stan compiler's naming); a PyMC source ``.py`` pairs with a ``.nc``/``.zarr`` of
-the same stem in the same folder.
+the same stem in the same folder. Programs left without draws become analyses of
+their own with an ``unpaired`` problem.
 """
 
 from __future__ import annotations
@@ -17,6 +18,7 @@ from pathlib import Path
 
 from auditor.loaders import read_cmdstan_header
 from auditor.model import AnalysisSpec, InputProblem
+from auditor.programs.read import read_program
 
 #: Folders never searched: our own output, version control, environments.
 SKIP_DIRS = frozenset(
@@ -95,6 +97,19 @@ def discover(
                 )
             )
             specs.append(AnalysisSpec(name=program.stem, draws=[], model=program))
+    for source in sorted(py_sources):
+        # Any .py may be a helper script: only a file that builds a PyMC model
+        # (read with ast, never run) is a program whose draws are missing.
+        if source not in paired and read_program(source).declarations:
+            problems.append(
+                InputProblem(
+                    "unpaired",
+                    source,
+                    f"PyMC model source found but no {source.stem}.nc or {source.stem}.zarr "
+                    "beside it",
+                )
+            )
+            specs.append(AnalysisSpec(name=source.stem, draws=[], model=source))
     _unique_names(specs)
     return specs, problems
 

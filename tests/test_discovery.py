@@ -117,3 +117,16 @@ def test_pymc_source_pairs_with_netcdf_of_same_stem(tmp_path):
     (analysis,) = result.analyses
     assert analysis.program == "schools.py"
     assert not [f for f in analysis.findings if f.rule_id == "inputs.unpaired"]
+
+
+def test_pymc_model_without_draws_is_reported_but_helper_scripts_are_not(tmp_path):
+    project = tmp_path / "pymc-only"
+    project.mkdir()
+    (project / "model.py").write_text(
+        "import pymc as pm\nwith pm.Model():\n    mu = pm.Normal('mu', 0, 1)\n"
+    )
+    (project / "plot_helpers.py").write_text("import numpy as np\n\ndef f(x):\n    return x\n")
+    result = run_audit([project])
+    assert [a.name for a in result.analyses] == ["model"]
+    (hit,) = [f for f in result.all_findings if f.rule_id == "inputs.unpaired"]
+    assert hit.location.path == "model.py" and hit.severity.value == "warning"
