@@ -21,17 +21,20 @@ FILENAME = "audit.json"
 FORMAT_VERSION = 1
 
 
-def _clean(value: Any) -> Any:
-    # JSON has no NaN or infinity; "not computable" is null.
+def json_safe(value: Any) -> Any:
+    """``value`` as plain JSON data: NaN and infinity become null ("not computable"),
+    numpy scalars are unwrapped, anything else unknown becomes its text."""
+    if hasattr(value, "item") and callable(value.item) and not isinstance(value, list | dict):
+        value = value.item()
     if isinstance(value, float):
         return value if math.isfinite(value) else None
     if isinstance(value, dict):
-        return {str(k): _clean(v) for k, v in value.items()}
+        return {str(k): json_safe(v) for k, v in value.items()}
     if isinstance(value, list | tuple):
-        return [_clean(v) for v in value]
-    if hasattr(value, "item") and callable(value.item):  # numpy scalar
-        return _clean(value.item())
-    return value
+        return [json_safe(v) for v in value]
+    if value is None or isinstance(value, bool | int | str):
+        return value
+    return str(value)
 
 
 def finding_dict(f: Finding) -> dict[str, Any]:
@@ -46,7 +49,7 @@ def finding_dict(f: Finding) -> dict[str, Any]:
         "analysis": f.analysis,
         "quantity": f.quantity,
         "message": f.message,
-        "evidence": _clean(f.evidence),
+        "evidence": json_safe(f.evidence),
         "fix": f.fix,
         "location": loc,
     }
@@ -72,14 +75,14 @@ def to_dict(result: AuditResult) -> dict[str, Any]:
                 "sources": a.sources,
                 "chains": a.n_chains,
                 "draws_per_chain": a.n_draws,
-                "settings": _clean(a.settings),
-                "diagnostics": _clean(a.diagnostics),
+                "settings": json_safe(a.settings),
+                "diagnostics": json_safe(a.diagnostics),
                 "findings": [finding_dict(f) for f in a.findings],
             }
             for a in result.analyses
         ],
         "inputs": [{"path": i.path, "sha256": i.sha256, "bytes": i.size} for i in result.inputs],
-        "config": _clean(result.config),
+        "config": json_safe(result.config),
         "libraries": dict(sorted(result.libraries.items())),
     }
 

@@ -14,12 +14,12 @@ from __future__ import annotations
 
 import hashlib
 import json
-import math
 from pathlib import Path
 from typing import Any
 from urllib.parse import quote
 
 from auditor.findings import Finding, Location
+from auditor.reporters.json_report import json_safe
 from auditor.result import AuditResult
 
 FORMAT = "sarif"
@@ -29,21 +29,6 @@ SCHEMA_URI = "https://docs.oasis-open.org/sarif/sarif/v2.1.0/errata01/os/schemas
 BASE_ID = "PROJECTROOT"
 #: Version of our ``partialFingerprints`` recipe; bump if the recipe changes.
 FINGERPRINT_KEY = "bayesAuditorFinding/v1"
-
-
-def _json_safe(value: Any) -> Any:
-    # SARIF is JSON: no NaN or infinity ("not computable" is null); numpy scalars unwrapped.
-    if hasattr(value, "item") and callable(value.item) and not isinstance(value, list | dict):
-        value = value.item()
-    if isinstance(value, float):
-        return value if math.isfinite(value) else None
-    if isinstance(value, dict):
-        return {str(k): _json_safe(v) for k, v in value.items()}
-    if isinstance(value, list | tuple):
-        return [_json_safe(v) for v in value]
-    if value is None or isinstance(value, bool | int | str):
-        return value
-    return str(value)
 
 
 def _pascal(rule_id: str) -> str:
@@ -74,7 +59,7 @@ def _descriptor(rule: Any) -> dict[str, Any]:
             "stage": rule.stage,
             "tags": [rule.stage],
             "references": refs,
-            "thresholds": _json_safe(dict(rule.thresholds)),
+            "thresholds": json_safe(dict(rule.thresholds)),
             "aliases": list(getattr(rule, "aliases", []) or []),
         },
     }
@@ -114,7 +99,7 @@ def _result(f: Finding, index: int) -> dict[str, Any]:
             physical["region"] = region
         out["locations"] = [{"physicalLocation": physical}]
     out["partialFingerprints"] = {FINGERPRINT_KEY: _fingerprint(f)}
-    props: dict[str, Any] = {"stage": f.stage, "evidence": _json_safe(f.evidence)}
+    props: dict[str, Any] = {"stage": f.stage, "evidence": json_safe(f.evidence)}
     if f.analysis is not None:
         props["analysis"] = f.analysis
     if f.quantity is not None:
@@ -170,7 +155,7 @@ def build(result: AuditResult) -> dict[str, Any]:
             "counts": result.counts(),
             "caution": result.caution,
             "libraries": dict(sorted(result.libraries.items())),
-            "settings": _json_safe(result.config),
+            "settings": json_safe(result.config),
         },
     }
     return {"$schema": SCHEMA_URI, "version": SARIF_VERSION, "runs": [run]}
