@@ -8,6 +8,7 @@ from collections.abc import Iterator
 import numpy as np
 
 from auditor.findings import Finding, Location
+from auditor.programs.summary import Declaration, Distribution
 from auditor.rules_api import RuleContext
 
 
@@ -47,6 +48,21 @@ def sample_stat(ctx: RuleContext, name: str) -> np.ndarray | None:
     if ds is None or name not in ds.data_vars:
         return None
     return np.asarray(ds[name].transpose("chain", "draw", ...).values)
+
+
+#: Blocks whose declarations take prior statements.
+PRIOR_BLOCKS = ("parameters", "transformed parameters")
+
+
+def prior_statements(ctx: RuleContext) -> Iterator[tuple[Declaration, Distribution]]:
+    """Every prior statement of the program with its variable; none when it does not parse."""
+    prog = ctx.analysis.program
+    if prog is None or prog.syntax_errors:
+        return
+    for decl in prog.declarations.values():
+        if decl.block in PRIOR_BLOCKS:
+            for dist in decl.priors:
+                yield decl, dist
 
 
 def problem_findings(ctx: RuleContext, kind: str) -> Iterator[Finding]:

@@ -22,9 +22,9 @@ import numpy as np
 
 from auditor.findings import Finding
 from auditor.programs.summary import Distribution, Likelihood, ProgramSummary
+from auditor.rulekit import prior_statements
 from auditor.rules_api import RuleContext
 
-_PRIOR_BLOCKS = ("parameters", "transformed parameters")
 _PARAM_BLOCKS = ("parameters", "transformed parameters")
 #: Families with a scale argument and its index (location-scale families come from
 #: Distribution.scale_arg; half families are listed here).
@@ -259,34 +259,31 @@ def check(ctx: RuleContext) -> Iterable[Finding]:
     max_scale = float(ctx.thresholds.get("max_scale", 100.0))
     scales = _data_scales(ctx, prog)
     findings = []
-    for decl in prog.declarations.values():
-        if decl.block not in _PRIOR_BLOCKS:
+    for decl, dist in prior_statements(ctx):
+        prior_scale = _prior_scale(dist)
+        if prior_scale is None or prior_scale <= 0:
             continue
-        for dist in decl.priors:
-            prior_scale = _prior_scale(dist)
-            if prior_scale is None or prior_scale <= 0:
-                continue
-            loc = ctx.location_of(dist)
-            shown = f"{dist.family}({', '.join(a.text for a in dist.args)})"
-            if decl.name in scales.by_name:
-                data_scale, how = scales.by_name[decl.name]
-                ratio = prior_scale / data_scale
-                if ratio > max_ratio:
-                    findings.append(ctx.finding(
-                        f"The prior {shown} on `{decl.name}` has scale "
-                        f"{prior_scale:g}, {ratio:.3g} times the data scale {data_scale:.3g} "
-                        f"({how}); the limit is {max_ratio:g} times.",
-                        evidence={"parameter": decl.name, "family": dist.family,
-                                  "prior_scale": prior_scale, "data_scale": data_scale,
-                                  "data_scale_from": how, "ratio": ratio,
-                                  "max_scale_ratio": max_ratio},
-                        quantity=decl.name, location=loc))
-            elif prior_scale > max_scale:
+        loc = ctx.location_of(dist)
+        shown = f"{dist.family}({', '.join(a.text for a in dist.args)})"
+        if decl.name in scales.by_name:
+            data_scale, how = scales.by_name[decl.name]
+            ratio = prior_scale / data_scale
+            if ratio > max_ratio:
                 findings.append(ctx.finding(
-                    f"The prior {shown} on `{decl.name}` has scale {prior_scale:g}, "
-                    f"above the limit of {max_scale:g} (no data scale could be tied to it).",
+                    f"The prior {shown} on `{decl.name}` has scale "
+                    f"{prior_scale:g}, {ratio:.3g} times the data scale {data_scale:.3g} "
+                    f"({how}); the limit is {max_ratio:g} times.",
                     evidence={"parameter": decl.name, "family": dist.family,
-                              "prior_scale": prior_scale, "data_scale": None, "ratio": None,
-                              "max_scale": max_scale},
+                              "prior_scale": prior_scale, "data_scale": data_scale,
+                              "data_scale_from": how, "ratio": ratio,
+                              "max_scale_ratio": max_ratio},
                     quantity=decl.name, location=loc))
+        elif prior_scale > max_scale:
+            findings.append(ctx.finding(
+                f"The prior {shown} on `{decl.name}` has scale {prior_scale:g}, "
+                f"above the limit of {max_scale:g} (no data scale could be tied to it).",
+                evidence={"parameter": decl.name, "family": dist.family,
+                          "prior_scale": prior_scale, "data_scale": None, "ratio": None,
+                          "max_scale": max_scale},
+                quantity=decl.name, location=loc))
     return findings
