@@ -12,7 +12,8 @@ from pathlib import Path
 import numpy as np
 import xarray as xr
 
-from auditor.loaders import load_draws
+from auditor.boundary import Boundary
+from auditor.loaders import Loaded, LoadProblem, load_draws
 from auditor.loaders.stan_data import read_stan_data
 from auditor.model import Analysis, AnalysisSpec, InputProblem
 from auditor.programs.read import read_program
@@ -63,6 +64,15 @@ def _arrange_stan_groups(tree: xr.DataTree, spec: AnalysisSpec, prefix: str) -> 
     return _move(tree, "posterior", "posterior_predictive", {spec.predictive: target})
 
 
+def _load(paths: list[Path], gate: Boundary) -> Loaded:
+    """``load_draws``, with a reader's own failure turned into a problem of the files."""
+    try:
+        return load_draws(paths, gate)
+    except Exception as exc:  # noqa: BLE001 - a reader bug must cost only these files
+        return Loaded(tree=None, problems=[
+            LoadProblem(p, _reader_failed(p, "draws", exc).message) for p in paths[:1]])
+
+
 def _data_from_tree(tree: xr.DataTree) -> dict[str, object]:
     data: dict[str, object] = {}
     for group in ("constant_data", "observed_data"):
@@ -72,16 +82,55 @@ def _data_from_tree(tree: xr.DataTree) -> dict[str, object]:
     return data
 
 
-def assemble(spec: AnalysisSpec) -> Analysis:
-    """Load every file of ``spec``; problems are recorded, never raised."""
+def _exists(path: Path) -> bool:
+    # A link counts as present even when it dangles or loops: the loader, through
+    # the boundary, says what is wrong with it.
+    try:
+        return path.exists() or path.is_symlink()
+    except OSError:
+        return True
+
+
+def _reader_failed(path: Path, what: str, exc: Exception) -> InputProblem:
+    """A reader raised on odd input (a bug of ours): the file is reported, never a traceback."""
+    return InputProblem(
+        "unreadable", path,
+        f"the {what} reader failed on this file ({type(exc).__name__}: {str(exc)[:200]}); "
+        "it was left out; please report this to the tool's maintainers with the file")
+
+
+def assemble(spec: AnalysisSpec, gate: Boundary | None = None) -> Analysis:
+    """Load every file of ``spec`` through ``gate``; problems are recorded, never raised.
+
+    ``gate`` is the project boundary (default: type and size checks only). A
+    reader that raises on odd input despite its own checks costs only the
+    file it was reading, which is reported.
+    """
+    try:
+        return _assemble(spec, gate)
+    except Exception as exc:  # noqa: BLE001 - last line of defence; see _assemble
+        analysis = Analysis(name=spec.name, tree=None, spec=spec)
+        analysis.problems.extend(spec.problems)
+        first = (spec.draws or spec.prior_draws or [spec.model or spec.data or Path(spec.name)])
+        analysis.problems.append(_reader_failed(first[0], "input", exc))
+        return analysis
+
+
+def _assemble(spec: AnalysisSpec, gate: Boundary | None = None) -> Analysis:
+    """Load every file of ``spec`` through ``gate``; problems are recorded, never raised.
+
+    ``gate`` is the project boundary (default: type and size checks only).
+    """
+    gate = gate or Boundary.unconfined()
     analysis = Analysis(name=spec.name, tree=None, spec=spec)
+    analysis.problems.extend(spec.problems)
     if spec.draws:
-        missing = [p for p in spec.draws if not p.exists()]
+        missing = [p for p in spec.draws if not _exists(p)]
         for p in missing:
             analysis.problems.append(InputProblem("unreadable", p, "draws file not found"))
-        present = [p for p in spec.draws if p.exists()]
+        present = [p for p in spec.draws if _exists(p)]
         if present:
-            loaded = load_draws(present)
+            loaded = _load(present, gate)
             analysis.settings = loaded.settings
             analysis.sources = list(loaded.sources)
             analysis.problems.extend(_problems(loaded.problems))
@@ -91,11 +140,11 @@ def assemble(spec: AnalysisSpec) -> Analysis:
             analysis.tree = tree
     if spec.prior_draws:
         for p in spec.prior_draws:
-            if not p.exists():
+            if not _exists(p):
                 analysis.problems.append(
                     InputProblem("unreadable", p, "prior draws file not found")
                 )
-        loaded = load_draws([p for p in spec.prior_draws if p.exists()])
+        loaded = _load([p for p in spec.prior_draws if _exists(p)], gate)
         analysis.problems.extend(_problems(loaded.problems))
         analysis.sources.extend(p for p in loaded.sources if p not in analysis.sources)
         if loaded.tree is not None:
@@ -108,8 +157,8 @@ def assemble(spec: AnalysisSpec) -> Analysis:
             analysis.tree = xr.DataTree.from_dict(groups)
             analysis.tree.attrs = attrs
     if spec.data is not None:
-        if spec.data.is_file():
-            values, problems = read_stan_data(spec.data)
+        if _exists(spec.data):
+            values, problems = read_stan_data(spec.data, gate)
             analysis.data = dict(values)
             analysis.problems.extend(_problems(problems))
         else:
@@ -117,8 +166,13 @@ def assemble(spec: AnalysisSpec) -> Analysis:
     elif analysis.tree is not None:
         analysis.data = _data_from_tree(analysis.tree)
     if spec.model is not None:
-        if spec.model.is_file():
-            analysis.program = read_program(spec.model)
+        if _exists(spec.model):
+            analysis.program = read_program(spec.model, gate)
+            # Includes and the program itself refused by the boundary are input
+            # problems (outside the project, a FIFO, too large), not syntax errors.
+            analysis.problems.extend(
+                InputProblem(p.kind, Path(p.path), p.message, p.line)
+                for p in analysis.program.syntax_errors if p.kind != "syntax")
         else:
             analysis.problems.append(
                 InputProblem("unreadable", spec.model, "model program not found")

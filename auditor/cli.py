@@ -35,6 +35,9 @@ def _parser() -> argparse.ArgumentParser:
                        help="lowest severity that makes the exit status 1 (default: error)")
     audit.add_argument("--config", type=Path, metavar="FILE",
                        help="configuration file (default: bayes-auditor.toml or pyproject.toml)")
+    audit.add_argument("--allow-read", action="append", type=Path, metavar="DIR", default=[],
+                       help="also read files under DIR, outside the project (only for a "
+                            "project you trust; repeatable; off by default)")
     sub.add_parser("rules", help="list every rule")
     explain = sub.add_parser("explain", help="explain one rule")
     explain.add_argument("rule_id", metavar="RULE_ID")
@@ -92,7 +95,8 @@ def _cmd_audit(args: argparse.Namespace) -> int:
     paths = args.paths or [Path.cwd()]
     overrides = {"gate": args.gate, "report": args.report}
     try:
-        result = run_audit(paths, config_path=args.config, overrides=overrides)
+        result = run_audit(paths, config_path=args.config, overrides=overrides,
+                           allow_read=tuple(args.allow_read))
     except (ConfigError, NothingToAudit) as exc:
         print(f"{TOOL_NAME}: {exc}", file=sys.stderr)
         return EXIT_NOTHING

@@ -8,13 +8,17 @@ table is read. Unknown keys produce a warning naming the closest known key.
 from __future__ import annotations
 
 import difflib
-import glob
+import math
+import os
+import re
 import tomllib
+from collections.abc import Callable
 from dataclasses import dataclass, field
 from pathlib import Path
 from typing import Any
 
-from auditor.model import AnalysisSpec
+from auditor.boundary import DEFAULT_MAX_SHARE, Boundary, Refused, display
+from auditor.model import AnalysisSpec, InputProblem
 from auditor.result import GATES
 
 DEFAULTS: dict[str, Any] = {
@@ -24,9 +28,9 @@ DEFAULTS: dict[str, Any] = {
     "max_figures": 4,
     "max_table_rows": 1000,
     "page_size": "A4",
+    "max_input_share": DEFAULT_MAX_SHARE,
 }
 
-TOP_KEYS = frozenset(DEFAULTS) | {"rules", "analysis"}
 ANALYSIS_KEYS = frozenset(
     {
         "name",
@@ -43,10 +47,134 @@ ANALYSIS_KEYS = frozenset(
 RULE_KEYS = frozenset({"enabled", "severity"})
 REPORT_FORMATS = ("json", "html", "pdf", "md", "sarif")
 PAGE_SIZES = ("A4", "letter")
+SEVERITIES = ("error", "warning", "note")
 
 
 class ConfigError(Exception):
     """The configuration cannot be used (unreadable file, wrong type). Exit status 2."""
+
+
+# --------------------------------------------------------------------------- types
+# Every key has a declared type: a check that returns the value to keep, or raises
+# ``TypeError`` with the expected type in words (the caller names the file and key).
+
+
+def _is_number(v: Any) -> bool:
+    return isinstance(v, int | float) and not isinstance(v, bool)
+
+
+def _text(v: Any) -> str:
+    if not isinstance(v, str):
+        raise TypeError("a string")
+    return v
+
+
+def _one_of(options: tuple[str, ...]) -> Callable[[Any], str]:
+    def check(v: Any) -> str:
+        if v not in options:
+            raise TypeError("one of " + ", ".join(repr(o) for o in options))
+        return v
+    return check
+
+
+def _count(v: Any) -> int:
+    if not isinstance(v, int) or isinstance(v, bool) or v < 0:
+        raise TypeError("a whole number >= 0")
+    return v
+
+
+def _share(v: Any) -> float:
+    if not _is_number(v) or not 0 < v <= 1:
+        raise TypeError("a number above 0 and at most 1")
+    return float(v)
+
+
+def _paths(v: Any) -> list[str]:
+    if isinstance(v, str):
+        v = [v]
+    if not isinstance(v, list) or not all(isinstance(p, str) and p for p in v):
+        raise TypeError("a path or a list of paths (strings)")
+    return v
+
+
+def _formats(v: Any) -> list[str]:
+    v = [v] if isinstance(v, str) else v
+    if not isinstance(v, list) or not all(isinstance(f, str) for f in v):
+        raise TypeError("a report format or a list of them")
+    bad = [f for f in v if f not in REPORT_FORMATS]
+    if bad:
+        raise TypeError(f"report formats among {', '.join(REPORT_FORMATS)} (not {bad[0]!r})")
+    return list(v)
+
+
+def _variable(v: Any) -> str:
+    if not isinstance(v, str) or not v.isidentifier():
+        raise TypeError("a variable name")
+    return v
+
+
+def _range(v: Any) -> tuple[float, float]:
+    ok = (isinstance(v, list) and len(v) == 2 and all(_is_number(x) for x in v)
+          and all(math.isfinite(x) for x in v) and v[0] < v[1])
+    if not ok:
+        raise TypeError("[low, high] with low < high")
+    return float(v[0]), float(v[1])
+
+
+def _table(v: Any) -> dict[str, Any]:
+    if not isinstance(v, dict):
+        raise TypeError("a table")
+    return v
+
+
+def _tables(v: Any) -> list[Any]:
+    if not isinstance(v, list):
+        raise TypeError("an array of tables ([[analysis]])")
+    return v
+
+
+#: Top-level keys and their types.
+TOP_TYPES: dict[str, Callable[[Any], Any]] = {
+    "gate": _one_of(GATES),
+    "report": _formats,
+    "out": _text,
+    "max_figures": _count,
+    "max_table_rows": _count,
+    "page_size": _one_of(PAGE_SIZES),
+    "max_input_share": _share,
+    "rules": _table,
+    "analysis": _tables,
+}
+TOP_KEYS = frozenset(TOP_TYPES)
+#: ``[[analysis]]`` keys and their types.
+ANALYSIS_TYPES: dict[str, Callable[[Any], Any]] = {
+    "name": _text,
+    "draws": _paths,
+    "prior_draws": _paths,
+    "model": _text,
+    "data": _text,
+    "observed": _variable,
+    "log_lik": _variable,
+    "predictive": _variable,
+    "plausible_range": _range,
+}
+assert set(ANALYSIS_TYPES) == ANALYSIS_KEYS
+
+
+def _typed(check: Callable[[Any], Any], value: Any, where: str, key: str) -> Any:
+    try:
+        return check(value)
+    except TypeError as exc:
+        raise ConfigError(
+            f"{where}: {key!r} must be {exc}, not {_shown(value)}") from None
+
+
+def _shown(value: Any) -> str:
+    text = repr(value)
+    kind = type(value).__name__
+    kind = {"str": "a string", "int": "an integer", "float": "a number", "bool": "a boolean",
+            "list": "a list", "dict": "a table"}.get(kind, kind)
+    return f"{kind} ({text[:60]}{'...' if len(text) > 60 else ''})"
 
 
 @dataclass
@@ -64,11 +192,14 @@ class Config:
     max_figures: int = 4
     max_table_rows: int = 1000
     page_size: str = "A4"
+    max_input_share: float = DEFAULT_MAX_SHARE
     rules: dict[str, dict[str, Any]] = field(default_factory=dict)
     analyses: list[AnalysisSpec] = field(default_factory=list)
     source: Path | None = None
     warnings: list[str] = field(default_factory=list)
     only_rules: set[str] | None = None
+    #: Where ``out`` came from (``None``: the default or the command line).
+    out_origin: str | None = None
 
     def effective(self) -> dict[str, Any]:
         """JSON-safe view of the settings that shaped the audit (for reports)."""
@@ -79,6 +210,7 @@ class Config:
             "max_figures": self.max_figures,
             "max_table_rows": self.max_table_rows,
             "page_size": self.page_size,
+            "max_input_share": self.max_input_share,
             "rules": {k: dict(sorted(v.items())) for k, v in sorted(self.rules.items())},
             "config_file": self.source.name if self.source else None,
         }
@@ -89,100 +221,162 @@ def _closest(key: str, known: frozenset[str] | set[str]) -> str:
     return f"; did you mean {match[0]!r}?" if match else ""
 
 
-def find_config_file(root: Path) -> Path | None:
-    """``bayes-auditor.toml`` in ``root``, else a ``pyproject.toml`` with our table."""
+def _parse(path: Path, boundary: Boundary) -> dict[str, Any]:
+    """The TOML document at ``path``, read through the boundary.
+
+    Raises
+    ------
+    ConfigError
+        Refused, unreadable, not UTF-8 or not valid TOML.
+    """
+    try:
+        raw = boundary.read_bytes(path)
+    except Refused as exc:
+        raise ConfigError(f"{display(path)}: {exc.reason}") from None
+    except OSError as exc:
+        raise ConfigError(f"{display(path)}: cannot be read ({exc.strerror})") from None
+    try:
+        text = raw.decode("utf-8")
+    except UnicodeDecodeError as exc:
+        line = raw.count(b"\n", 0, exc.start) + 1
+        raise ConfigError(f"{display(path)}, line {line}: not UTF-8 text") from None
+    try:
+        return tomllib.loads(text.removeprefix("\ufeff"))
+    except tomllib.TOMLDecodeError as exc:
+        raise ConfigError(f"{display(path)}: not valid TOML ({exc})") from None
+
+
+def _tool_table(data: dict[str, Any]) -> Any:
+    """``[tool.bayes-auditor]`` of a pyproject document, or ``None`` when absent."""
+    tool = data.get("tool")
+    if not isinstance(tool, dict):
+        return None
+    return tool.get("bayes-auditor")
+
+
+def find_config_file(root: Path, boundary: Boundary | None = None) -> Path | None:
+    """``bayes-auditor.toml`` in ``root``, else a ``pyproject.toml`` with our table.
+
+    A ``pyproject.toml`` that cannot be read or parsed is not ours to judge, and is
+    passed over; a ``bayes-auditor.toml`` always counts (it is read, and its
+    errors reported, by :func:`load_config`).
+    """
+    boundary = boundary or Boundary(root)
     own = root / "bayes-auditor.toml"
-    if own.is_file():
+    if own.exists() or own.is_symlink():
         return own
     pyproject = root / "pyproject.toml"
-    if pyproject.is_file():
+    if pyproject.exists() or pyproject.is_symlink():
         try:
-            with pyproject.open("rb") as fh:
-                data = tomllib.load(fh)
-        except (OSError, tomllib.TOMLDecodeError):
+            data = _parse(pyproject, boundary)
+        except ConfigError:
             return None
-        if "bayes-auditor" in data.get("tool", {}):
+        if _tool_table(data) is not None:
             return pyproject
     return None
 
 
-def _read_table(path: Path) -> dict[str, Any]:
-    try:
-        with path.open("rb") as fh:
-            data = tomllib.load(fh)
-    except OSError as exc:
-        raise ConfigError(f"{path}: cannot be read ({exc.strerror})") from None
-    except tomllib.TOMLDecodeError as exc:
-        raise ConfigError(f"{path}: not valid TOML ({exc})") from None
+def _read_table(path: Path, boundary: Boundary) -> dict[str, Any]:
+    data = _parse(path, boundary)
     if path.name == "pyproject.toml":
-        data = data.get("tool", {}).get("bayes-auditor", {})
+        data = _tool_table(data)
+        if data is None:
+            return {}
     if not isinstance(data, dict):
-        raise ConfigError(f"{path}: the bayes-auditor table must be a table")
+        raise ConfigError(f"{display(path)}: [tool.bayes-auditor] must be a table")
     return data
 
 
-def _expand(root: Path, patterns: Any, where: str) -> list[Path]:
-    if isinstance(patterns, str):
-        patterns = [patterns]
-    if not isinstance(patterns, list) or not all(isinstance(p, str) for p in patterns):
-        raise ConfigError(f"{where}: expected a path or a list of paths")
+_ANALYSIS_HEADER = re.compile(r"^[ \t]*\[\[[ \t]*analysis[ \t]*\]\]", re.MULTILINE)
+
+
+def _line_of(text: str, value: str, table: int | None = None) -> int | None:
+    """Line of the first TOML string literal equal to ``value`` in ``text``, searched
+    from the ``table``-th ``[[analysis]]`` header (0-based) when given."""
+    start = 0
+    if table is not None:
+        headers = [m.start() for m in _ANALYSIS_HEADER.finditer(text)]
+        start = headers[table] if table < len(headers) else 0
+    for quote in ('"', "'"):
+        m = re.compile(re.escape(quote + value + quote)).search(text, start)
+        if m:
+            return text.count("\n", 0, m.start()) + 1
+    return None
+
+
+def _expand(
+    base: Path, patterns: list[str], key: str, ctx: _SpecContext
+) -> list[Path]:
     found: list[Path] = []
     for pattern in patterns:
-        full = str(root / pattern)
-        matches = sorted(glob.glob(full)) if glob.has_magic(pattern) else [full]
-        found.extend(Path(m) for m in matches)
+        try:
+            matches = ctx.boundary.glob(pattern, base)
+        except Refused as exc:
+            ctx.refuse(exc, key, pattern)
+            continue
+        found.extend(matches)
     return found
 
 
+@dataclass
+class _SpecContext:
+    """What reading one ``[[analysis]]`` entry needs: where it is, the boundary, and
+    where refused paths are recorded."""
+
+    path: Path
+    text: str
+    boundary: Boundary
+    index: int = 0
+    problems: list[InputProblem] = field(default_factory=list)
+
+    def refuse(self, exc: Refused, key: str, written: str) -> None:
+        shown = written if len(written) <= 120 else written[:80] + "..."
+        self.problems.append(InputProblem(
+            exc.kind, self.path,
+            f"{key} = {shown!r}: {exc.reason}", _line_of(self.text, written, self.index)))
+
+
 def _analysis_spec(
-    root: Path, entry: Any, index: int, path: Path, warnings: list[str]
+    base: Path, entry: Any, index: int, ctx: _SpecContext, warnings: list[str]
 ) -> AnalysisSpec:
-    where = f"{path}: [[analysis]] #{index + 1}"
+    where = f"{display(ctx.path)}: [[analysis]] #{index + 1}"
+    ctx.index = index
     if not isinstance(entry, dict):
         raise ConfigError(f"{where}: must be a table")
     for key in entry:
         if key not in ANALYSIS_KEYS:
             warnings.append(f"{where}: unknown key {key!r}{_closest(key, ANALYSIS_KEYS)}")
-    name = entry.get("name")
-    if not isinstance(name, str) or not name:
+    values = {k: _typed(ANALYSIS_TYPES[k], v, where, k)
+              for k, v in entry.items() if k in ANALYSIS_TYPES}
+    name = values.get("name")
+    if not name:
         raise ConfigError(f"{where}: 'name' is required and must be a string")
-    if "draws" not in entry and "model" not in entry:
+    if "draws" not in values and "model" not in values:
         raise ConfigError(f"{where} ({name}): needs 'draws' or 'model'")
-    draws = _expand(root, entry.get("draws", []), f"{where} draws")
-    prior = _expand(root, entry.get("prior_draws", []), f"{where} prior_draws")
+    ctx.problems = []
+    draws = _expand(base, values.get("draws", []), "draws", ctx)
+    prior = _expand(base, values.get("prior_draws", []), "prior_draws", ctx)
     single: dict[str, Path | None] = {}
     for key in ("model", "data"):
-        value = entry.get(key)
-        if value is not None and not isinstance(value, str):
-            raise ConfigError(f"{where}: '{key}' must be a path string")
-        single[key] = (root / value) if value else None
-    for key in ("observed", "log_lik", "predictive"):
-        value = entry.get(key)
-        if value is not None and (not isinstance(value, str) or not value.isidentifier()):
-            raise ConfigError(f"{where}: '{key}' must be a variable name")
-    rng = entry.get("plausible_range")
-    plausible: tuple[float, float] | None = None
-    if rng is not None:
-        ok = (
-            isinstance(rng, list)
-            and len(rng) == 2
-            and all(isinstance(v, int | float) and not isinstance(v, bool) for v in rng)
-            and rng[0] < rng[1]
-        )
-        if not ok:
-            raise ConfigError(f"{where}: 'plausible_range' must be [low, high] with low < high")
-        plausible = (float(rng[0]), float(rng[1]))
+        value = values.get(key)
+        single[key] = None
+        if value:
+            try:
+                single[key] = ctx.boundary.locate(value, base)
+            except Refused as exc:
+                ctx.refuse(exc, key, value)
     return AnalysisSpec(
         name=name,
         draws=draws,
         model=single["model"],
         data=single["data"],
-        observed=entry.get("observed"),
-        plausible_range=plausible,
+        observed=values.get("observed"),
+        plausible_range=values.get("plausible_range"),
         declared=True,
         prior_draws=prior,
-        log_lik=entry.get("log_lik", "log_lik"),
-        predictive=entry.get("predictive", "y_rep"),
+        log_lik=values.get("log_lik", "log_lik"),
+        predictive=values.get("predictive", "y_rep"),
+        problems=list(ctx.problems),
     )
 
 
@@ -191,45 +385,19 @@ def _apply(cfg: Config, table: dict[str, Any], origin: str) -> None:
         if key not in TOP_KEYS:
             cfg.warnings.append(f"{origin}: unknown key {key!r}{_closest(key, TOP_KEYS)}")
             continue
-        if key == "gate":
-            if value not in GATES:
-                raise ConfigError(
-                    f"{origin}: gate must be one of {', '.join(GATES)}, not {value!r}"
-                )
-            cfg.gate = value
-        elif key == "report":
-            value = [value] if isinstance(value, str) else value
-            if not isinstance(value, list):
-                value = [value]
-            bad = [v for v in value if v not in REPORT_FORMATS]
-            if bad:
-                raise ConfigError(
-                    f"{origin}: unknown report format {bad[0]!r}"
-                    f" (known: {', '.join(REPORT_FORMATS)})"
-                )
-            cfg.report = list(value)
-        elif key == "out":
-            if not isinstance(value, str):
-                raise ConfigError(f"{origin}: out must be a folder path")
-            cfg.out = value
-        elif key == "page_size":
-            if value not in PAGE_SIZES:
-                raise ConfigError(f"{origin}: page_size must be one of {', '.join(PAGE_SIZES)}")
-            cfg.page_size = value
-        elif key in ("max_figures", "max_table_rows"):
-            if not isinstance(value, int) or isinstance(value, bool) or value < 0:
-                raise ConfigError(f"{origin}: {key} must be a whole number >= 0")
-            setattr(cfg, key, value)
-        elif key == "rules":
-            if not isinstance(value, dict):
-                raise ConfigError(f"{origin}: [rules] must be a table of rule ids")
+        value = _typed(TOP_TYPES[key], value, origin, key)
+        if key == "rules":
             for rule_id, opts in value.items():
                 if not isinstance(opts, dict):
-                    raise ConfigError(f"{origin}: [rules.{rule_id!r}] must be a table")
+                    raise ConfigError(
+                        f"{origin}: [rules.{rule_id!r}] must be a table, not {_shown(opts)}")
                 cfg.rules.setdefault(rule_id, {}).update(opts)
+        elif key != "analysis":
+            setattr(cfg, key, value)
 
 
-def load_config(root: Path, config_file: Path | None, cli: dict[str, Any]) -> Config:
+def load_config(root: Path, config_file: Path | None, cli: dict[str, Any],
+                boundary: Boundary | None = None) -> Config:
     """Build the effective configuration for the project at ``root``.
 
     Parameters
@@ -237,45 +405,123 @@ def load_config(root: Path, config_file: Path | None, cli: dict[str, Any]) -> Co
     root
         Project folder (where a config file is looked for when none is given).
     config_file
-        ``--config FILE``, or ``None`` to look in ``root``.
+        ``--config FILE``, or ``None`` to look in ``root``. A file given on the
+        command line is the user's own and may lie outside the project.
     cli
         Command-line overrides: keys of :data:`DEFAULTS` with non-``None`` values.
+    boundary
+        The project boundary (default: one rooted at ``root``). Paths in the
+        file are resolved through it; those it refuses become problems of their
+        analysis (``AnalysisSpec.problems``), never reads.
 
     Raises
     ------
     ConfigError
-        Unreadable or invalid configuration.
+        Unreadable or invalid configuration: a value of the wrong type names the
+        key and the expected type.
     """
     cfg = Config()
+    boundary = boundary or Boundary(root)
     path = config_file
-    if path is not None and not path.is_file():
-        raise ConfigError(f"{path}: configuration file not found")
-    if path is None:
-        path = find_config_file(root)
     if path is not None:
-        table = _read_table(path)
+        if not (path.exists() or path.is_symlink()):
+            raise ConfigError(f"{display(path)}: configuration file not found")
+        reader = Boundary.unconfined(boundary.max_bytes)
+    else:
+        path = find_config_file(root, boundary)
+        reader = boundary
+    if path is not None:
+        table = _read_table(path, reader)
         cfg.source = path
-        _apply(cfg, table, str(path))
-        entries = table.get("analysis", [])
-        if not isinstance(entries, list):
-            raise ConfigError(f"{path}: 'analysis' must be an array of tables ([[analysis]])")
+        origin = display(path)
+        _apply(cfg, table, origin)
+        if "out" in table:
+            cfg.out_origin = origin
+        ctx = _SpecContext(path, reader.read_text(path, errors="replace"), boundary)
         base = path.parent
         cfg.analyses = [
-            _analysis_spec(base, e, i, path, cfg.warnings) for i, e in enumerate(entries)
+            _analysis_spec(base, e, i, ctx, cfg.warnings)
+            for i, e in enumerate(table.get("analysis", []))
         ]
         names = [a.name for a in cfg.analyses]
         dupes = sorted({n for n in names if names.count(n) > 1})
         if dupes:
-            raise ConfigError(f"{path}: analysis names must be unique ({', '.join(dupes)})")
-    _apply(cfg, {k: v for k, v in cli.items() if v is not None}, "command line")
+            raise ConfigError(f"{origin}: analysis names must be unique ({', '.join(dupes)})")
+    overrides = {k: v for k, v in cli.items() if v is not None}
+    _apply(cfg, overrides, "command line")
+    if "out" in overrides:
+        cfg.out_origin = None
+    _check_out(root, cfg)
     return cfg
 
 
+def _check_out(root: Path, cfg: Config) -> None:
+    """A report folder named in the project's file must stay inside the project.
+
+    The command line's ``--out`` is the user's own choice and is not checked; a
+    hostile project's ``out = "../elsewhere"`` or an absolute path, or a link
+    inside the project leading out, would make the audit write anywhere.
+
+    Raises
+    ------
+    ConfigError
+        The configured folder leads outside the project.
+    """
+    if cfg.out_origin is None:
+        return
+    real_root = Path(os.path.realpath(root))
+    real = Path(os.path.realpath(os.path.join(real_root, cfg.out)))
+    if not (real == real_root or real.is_relative_to(real_root)):
+        raise ConfigError(
+            f"{cfg.out_origin}: out = {cfg.out!r} leads outside the project (to "
+            f"{display(real)}); reports are written only inside it (name another folder "
+            "with --out on the command line)"
+        )
+
+
+def _threshold_type(default: Any) -> Callable[[Any], Any]:
+    """The type of a threshold, declared by its default in ``rule.toml``."""
+    if isinstance(default, bool):
+        def check(v: Any) -> Any:
+            if not isinstance(v, bool):
+                raise TypeError("true or false")
+            return v
+    elif isinstance(default, int):
+        def check(v: Any) -> Any:
+            if not isinstance(v, int) or isinstance(v, bool):
+                raise TypeError("a whole number")
+            return v
+    elif isinstance(default, float):
+        def check(v: Any) -> Any:
+            if not _is_number(v) or not math.isfinite(v):
+                raise TypeError("a finite number")
+            return v
+    elif isinstance(default, str):
+        check = _text
+    elif isinstance(default, list):
+        def check(v: Any) -> Any:
+            if not isinstance(v, list):
+                raise TypeError("a list")
+            return v
+    elif isinstance(default, dict):
+        check = _table
+    else:  # pragma: no cover - rule.toml holds only TOML types
+        def check(v: Any) -> Any:
+            return v
+    return check
+
+
 def check_rule_options(cfg: Config, rules: list[Any]) -> None:
-    """Warn about unknown rule ids and option names in ``[rules]``."""
+    """Check ``[rules]``: unknown rule ids and options warn; wrong types are errors.
+
+    Raises
+    ------
+    ConfigError
+        An option of the wrong type, naming the rule, the option and the type.
+    """
     by_id = {r.id: r for r in rules}
     by_id.update({a: r for r in rules for a in r.aliases})
-    origin = str(cfg.source) if cfg.source else "configuration"
+    origin = display(cfg.source) if cfg.source else "configuration"
     for rule_id, opts in cfg.rules.items():
         rule = by_id.get(rule_id)
         if rule is None:
@@ -284,11 +530,15 @@ def check_rule_options(cfg: Config, rules: list[Any]) -> None:
             )
             continue
         known = RULE_KEYS | set(rule.thresholds)
-        for key in opts:
-            if key not in known:
+        where = f"{origin}: [rules.\"{rule.id}\"]"
+        for key, value in opts.items():
+            if key == "enabled":
+                _typed(_threshold_type(True), value, where, key)
+            elif key == "severity":
+                _typed(_one_of(SEVERITIES), value, where, key)
+            elif key in rule.thresholds:
+                _typed(_threshold_type(rule.thresholds[key]), value, where, key)
+            else:
                 cfg.warnings.append(
                     f"{origin}: rule {rule.id}: unknown option {key!r}{_closest(key, known)}"
                 )
-        sev = opts.get("severity")
-        if sev is not None and sev not in ("error", "warning", "note"):
-            raise ConfigError(f"{origin}: rule {rule.id}: severity must be error, warning or note")

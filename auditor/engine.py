@@ -8,12 +8,14 @@ from __future__ import annotations
 
 import hashlib
 import importlib.metadata
+import os
 import traceback
 from pathlib import Path
 from typing import Any
 
 from auditor import TOOL_NAME, __version__
 from auditor.assemble import assemble
+from auditor.boundary import Boundary, Refused, default_max_bytes, display
 from auditor.config import Config, check_rule_options, load_config
 from auditor.diagnostics import DiagnosticsTable
 from auditor.discovery import discover
@@ -32,9 +34,16 @@ class NothingToAudit(Exception):
     """No analysis could be found in the given paths (exit status 2)."""
 
 
+def _exists(path: Path) -> bool:
+    try:
+        return path.exists() or path.is_symlink()
+    except OSError:  # a name too long to look up
+        return False
+
+
 def project_root(paths: list[Path]) -> Path:
     """The project folder: the folder given, or the folder holding the files given."""
-    resolved = [p.resolve() for p in paths]
+    resolved = [Path(os.path.realpath(p)) for p in paths]
     if len(resolved) == 1 and resolved[0].is_dir() and resolved[0].suffix != ".zarr":
         return resolved[0]
     cwd = Path.cwd().resolve()
@@ -47,15 +56,37 @@ def project_root(paths: list[Path]) -> Path:
     return common
 
 
-def _sha256(path: Path) -> str:
+def _sha256(path: Path, gate: Boundary) -> tuple[str, int]:
     digest = hashlib.sha256()
-    with path.open("rb") as fh:
+    size = 0
+    with gate.open(path, check_size=False) as fh:
         for block in iter(lambda: fh.read(1 << 20), b""):
             digest.update(block)
-    return digest.hexdigest()
+            size += len(block)
+    return digest.hexdigest(), size
 
 
-def _input_files(project: Project, cfg: Config) -> list[InputFile]:
+def _fingerprint(path: Path, gate: Boundary) -> tuple[str, int] | None:
+    """SHA-256 and size of a file, or of a ``.zarr`` store's files in order; ``None``
+    when the boundary refuses it (it was then not read, and is not listed)."""
+    try:
+        real = gate.admit(path, folder=True, size=False)
+        if not real.is_dir():
+            return _sha256(path, gate)
+        gate.admit_tree(path)
+        digest = hashlib.sha256()
+        size = 0
+        for f in sorted(q for q in real.rglob("*") if q.is_file()):
+            digest.update(f.relative_to(real).as_posix().encode())
+            sha, n = _sha256(f, gate)
+            digest.update(sha.encode())
+            size += n
+        return digest.hexdigest(), size
+    except (Refused, OSError):
+        return None
+
+
+def _input_files(project: Project, cfg: Config, gate: Boundary) -> list[InputFile]:
     files: set[Path] = set()
     if cfg.source is not None:
         files.add(cfg.source)
@@ -68,16 +99,9 @@ def _input_files(project: Project, cfg: Config) -> list[InputFile]:
             files.update(Path(p) for p in a.program.includes)
     out = []
     for path in sorted(files, key=lambda p: project.relpath(p)):
-        if path.is_file():
-            out.append(InputFile(project.relpath(path), _sha256(path), path.stat().st_size))
-        elif path.is_dir():  # a .zarr store: hash its files in order
-            digest = hashlib.sha256()
-            size = 0
-            for f in sorted(q for q in path.rglob("*") if q.is_file()):
-                digest.update(f.relative_to(path).as_posix().encode())
-                digest.update(_sha256(f).encode())
-                size += f.stat().st_size
-            out.append(InputFile(project.relpath(path), digest.hexdigest(), size))
+        found = _fingerprint(path, gate)
+        if found is not None:
+            out.append(InputFile(project.relpath(path), *found))
     return out
 
 
@@ -131,17 +155,19 @@ def _failure(what: str, analysis: Analysis | None, project: Project,
     )
 
 
-def _excerpts(analysis: Analysis, project: Project, findings: list[Finding]) -> dict:
+def _excerpts(analysis: Analysis, project: Project, findings: list[Finding],
+              gate: Boundary) -> dict:
     prog = analysis.program
     if prog is None:
         return {}
     # The program's own lines, and those of the files it #includes (findings can
-    # point into either).
+    # point into either); includes are read through the boundary again, so only
+    # files it admitted can appear in a report.
     sources: dict[str, list[str]] = {project.relpath(prog.path): prog.source_lines}
     for inc in prog.includes:
         try:
-            sources[project.relpath(inc)] = Path(inc).read_text(errors="replace").splitlines()
-        except OSError:
+            sources[project.relpath(inc)] = gate.read_text(inc, errors="replace").splitlines()
+        except (Refused, OSError):
             continue
     out: dict[str, list[tuple[int, str]]] = {}
     for f in findings:
@@ -169,7 +195,7 @@ def _priors(analysis: Analysis, project: Project) -> list[str]:
 
 
 def _audit_analysis(analysis: Analysis, project: Project, rules: list[RuleMeta],
-                    cfg: Config) -> AnalysisResult:
+                    cfg: Config, gate: Boundary) -> AnalysisResult:
     one_based = analysis.settings.library == "CmdStan"
     table = DiagnosticsTable(analysis.group("posterior"), one_based=one_based)
     findings: list[Finding] = []
@@ -205,16 +231,44 @@ def _audit_analysis(analysis: Analysis, project: Project, rules: list[RuleMeta],
         findings=findings,
         program=project.relpath(analysis.program.path) if analysis.program else None,
         figures=figures,
-        excerpts=_excerpts(analysis, project, findings),
+        excerpts=_excerpts(analysis, project, findings, gate),
         groups=sorted(n for n in (analysis.tree.children if analysis.tree is not None else {})
                       if analysis.group(n) is not None),
         priors=_priors(analysis, project),
     )
 
 
+def _problem_finding(problem: InputProblem, project: Project) -> Finding | None:
+    """A project-level finding for an input problem outside any analysis."""
+    rule_id = f"inputs.{'remark' if problem.kind == 'note' else problem.kind}"
+    rule = find_rule(rule_id)
+    if rule is None:
+        return None
+    path = project.relpath(problem.path)
+    return Finding(
+        rule_id=rule.id,
+        severity=rule.severity,
+        stage=rule.stage,
+        message=f"{path}" + (f", line {problem.line}" if problem.line else "")
+        + f": {problem.message}",
+        evidence={"file": path, "line": problem.line},
+        fix=rule.fix,
+        location=_existing_location(project, problem.path, problem.line),
+    )
+
+
+def _existing_location(project: Project, path: Path, line: int | None) -> Location | None:
+    """A location only for a file that is really in the project: a finding never
+    points a reviewer's tools at a path outside it."""
+    shown = project.relpath(path)
+    if shown.startswith("/") or shown.startswith(".."):
+        return None
+    return Location(shown, line)
+
+
 def _project_findings(project: Project, cfg: Config) -> list[Finding]:
     rule = find_rule("inputs.config")
-    out = []
+    out = [f for f in (_problem_finding(p, project) for p in project.problems) if f]
     for message in cfg.warnings:
         path = project.relpath(cfg.source) if cfg.source else None
         out.append(
@@ -231,28 +285,31 @@ def _project_findings(project: Project, cfg: Config) -> list[Finding]:
     return out
 
 
-def build_project(paths: list[Path], cfg: Config, root: Path) -> Project:
-    """Find and load the analyses named by ``paths`` under ``cfg``."""
+def build_project(paths: list[Path], cfg: Config, root: Path,
+                  gate: Boundary | None = None) -> Project:
+    """Find and load the analyses named by ``paths`` under ``cfg``, through ``gate``."""
+    gate = gate or Boundary(root)
     project = Project(root=root)
     given_dir = len(paths) == 1 and paths[0].is_dir() and paths[0].suffix != ".zarr"
-    problems: list[InputProblem] = []
     specs: list[AnalysisSpec]
     if cfg.analyses and given_dir:
         specs = cfg.analyses
     else:
-        files = None if given_dir else [p.resolve() for p in paths]
-        specs, problems = discover(root, files)
+        files = None if given_dir else [Path(os.path.abspath(p)) for p in paths]
+        specs, project.problems = discover(root, files, gate)
     for spec in specs:
-        analysis = assemble(spec)
-        analysis.problems.extend(p for p in problems if spec.model == p.path)
-        project.analyses.append(analysis)
+        project.analyses.append(assemble(spec, gate))
     return project
 
 
 def run_audit(paths: list[Path], config_path: Path | None = None,
               overrides: dict[str, Any] | None = None,
-              only_rules: set[str] | None = None) -> AuditResult:
+              only_rules: set[str] | None = None,
+              allow_read: tuple[Path, ...] = ()) -> AuditResult:
     """Audit ``paths`` (a project folder or files) and return the one result.
+
+    Nothing outside the project root is read, except under the folders of
+    ``allow_read`` (the command line's ``--allow-read``, for trusted projects).
 
     Raises
     ------
@@ -261,15 +318,17 @@ def run_audit(paths: list[Path], config_path: Path | None = None,
     NothingToAudit
         No analysis found.
     """
-    missing = [p for p in paths if not p.exists()]
+    missing = [p for p in paths if not _exists(p)]
     if missing:
-        raise NothingToAudit(f"{missing[0]}: no such file or folder")
+        raise NothingToAudit(f"{display(missing[0])}: no such file or folder")
     root = project_root(paths)
-    cfg = load_config(root, config_path, overrides or {})
+    gate = Boundary(root, extra=tuple(allow_read), max_bytes=default_max_bytes())
+    cfg = load_config(root, config_path, overrides or {}, gate)
+    gate.max_bytes = default_max_bytes(cfg.max_input_share)
     cfg.only_rules = only_rules
     rules = all_rules()
     check_rule_options(cfg, rules)
-    project = build_project(paths, cfg, root)
+    project = build_project(paths, cfg, root, gate)
     if not project.analyses:
         raise NothingToAudit(
             f"{root}: no analyses found (no CmdStan CSV, .nc or .zarr draws, no Stan program, "
@@ -278,7 +337,7 @@ def run_audit(paths: list[Path], config_path: Path | None = None,
     project.findings = _project_findings(project, cfg)
     if only_rules is not None:
         project.findings = [f for f in project.findings if f.rule_id in only_rules]
-    analyses = [_audit_analysis(a, project, rules, cfg) for a in project.analyses]
+    analyses = [_audit_analysis(a, project, rules, cfg, gate) for a in project.analyses]
     return AuditResult(
         tool=TOOL_NAME,
         version=__version__,
@@ -287,7 +346,7 @@ def run_audit(paths: list[Path], config_path: Path | None = None,
         project_findings=project.findings,
         gate=cfg.gate,
         rules=rules,
-        inputs=_input_files(project, cfg),
+        inputs=_input_files(project, cfg, gate),
         config=cfg.effective(),
         libraries=_libraries(),
     )

@@ -18,12 +18,14 @@ Standard sampler statistics (``sample_stats``), whatever sampler wrote them:
 
 from __future__ import annotations
 
+import os
 from dataclasses import dataclass, field
 from pathlib import Path
 from typing import Any
 
 import xarray as xr
 
+from auditor.boundary import display
 from auditor.findings import Finding
 from auditor.programs.summary import ProgramSummary
 
@@ -64,7 +66,10 @@ class InputProblem:
 
     ``kind`` is ``unreadable`` (the file could not be used),
     ``inconsistent-chains`` (chains of one run disagree), ``unpaired`` (a model
-    program without draws, or draws without their program) or ``note``.
+    program without draws, or draws without their program), ``outside-project``
+    (a path leading out of the project, not read), ``special-file`` (a FIFO,
+    socket, device or link loop, never opened), ``too-large`` (over the size
+    limit, not read) or ``note`` (worth knowing; nothing was lost).
     """
 
     kind: str
@@ -91,6 +96,8 @@ class AnalysisSpec:
     prior_draws: list[Path] = field(default_factory=list)
     log_lik: str = "log_lik"
     predictive: str = "y_rep"
+    #: Problems seen while reading the declaration (paths refused by the boundary).
+    problems: list[InputProblem] = field(default_factory=list)
 
 
 @dataclass
@@ -157,19 +164,31 @@ class Analysis:
 class Project:
     """The project under audit: its root and its analyses.
 
-    ``findings`` holds project-level problems (configuration, discovery).
+    ``findings`` holds project-level findings (configuration); ``problems`` the
+    input problems found outside any analysis (discovery: links leading out,
+    FIFOs, files that are not draws beside a run).
     """
 
     root: Path
     analyses: list[Analysis] = field(default_factory=list)
     findings: list[Finding] = field(default_factory=list)
+    problems: list[InputProblem] = field(default_factory=list)
 
     def relpath(self, path: Path | str) -> str:
-        """``path`` relative to the project root with ``/`` separators.
+        """``path`` relative to the project root with ``/`` separators, printable.
 
-        Paths outside the root are given as they are (absolute)."""
-        p = Path(path).resolve()
+        The path is taken as written (links are not resolved, so a link that
+        leads out is named by its own place). Paths outside the root are given
+        absolute; bytes that are not UTF-8 become ``\\xNN`` escapes.
+        """
+        p = Path(os.path.abspath(path))
+        root = Path(os.path.abspath(self.root))
         try:
-            return p.relative_to(self.root.resolve()).as_posix()
+            text = p.relative_to(root).as_posix()
         except ValueError:
-            return p.as_posix()
+            real_root = Path(os.path.realpath(self.root))
+            try:
+                text = p.relative_to(real_root).as_posix()
+            except ValueError:
+                text = p.as_posix()
+        return display(text)

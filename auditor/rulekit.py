@@ -66,13 +66,18 @@ def prior_statements(ctx: RuleContext) -> Iterator[tuple[Declaration, Distributi
 
 
 def problem_findings(ctx: RuleContext, kind: str) -> Iterator[Finding]:
-    """One finding per input problem of ``kind`` recorded while loading the analysis."""
+    """One finding per input problem of ``kind`` recorded while loading the analysis.
+
+    A finding points at the file only when the file is inside the project; a path
+    outside it is named in the message, never given to reviewers' tools as a place.
+    """
     for p in ctx.analysis.problems:
         if p.kind != kind:
             continue
         path = ctx.project.relpath(p.path)
+        inside = not (path.startswith("/") or path.startswith(".."))
         yield ctx.finding(
             f"{path}" + (f", line {p.line}" if p.line else "") + f": {p.message}",
             evidence={"file": path, "line": p.line},
-            location=Location(path, p.line),
+            location=Location(path, p.line) if inside else None,
         )

@@ -29,6 +29,19 @@ def require_shared() -> Path:
     pytest.skip(reason)
 
 
+#: Generated inputs run by the property-based tests (tests/test_properties.py) and
+#: the seconds they took; printed at the end of the run.
+PROPERTY_RUNS: dict[str, float] = {"inputs": 0, "seconds": 0.0}
+
+
+def pytest_terminal_summary(terminalreporter) -> None:  # noqa: ANN001 - pytest's hook
+    """Say how many generated inputs the property-based tests ran, and how long."""
+    if PROPERTY_RUNS["inputs"]:
+        terminalreporter.write_line(
+            f"property-based tests: {int(PROPERTY_RUNS['inputs']):,} generated inputs in "
+            f"{PROPERTY_RUNS['seconds']:.0f} s of reading (budget: 120 s)")
+
+
 @pytest.fixture
 def shared_dir() -> Path:
     """Fixture form of :func:`require_shared`."""

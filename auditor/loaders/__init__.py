@@ -9,7 +9,13 @@ from __future__ import annotations
 from collections.abc import Sequence
 from pathlib import Path
 
-from auditor.loaders.cmdstan_csv import CmdStanHeader, load_cmdstan_csv, read_cmdstan_header
+from auditor.boundary import Boundary
+from auditor.loaders.cmdstan_csv import (
+    CmdStanHeader,
+    load_cmdstan_csv,
+    read_cmdstan_header,
+    sniff_cmdstan,
+)
 from auditor.loaders.problems import Loaded, LoadProblem
 from auditor.model import SamplerSettings
 
@@ -19,10 +25,11 @@ __all__ = [
     "Loaded",
     "load_draws",
     "read_cmdstan_header",
+    "sniff_cmdstan",
 ]
 
 
-def load_draws(paths: Sequence[Path]) -> Loaded:
+def load_draws(paths: Sequence[Path], gate: Boundary | None = None) -> Loaded:
     """Load the draws of one analysis.
 
     Parameters
@@ -31,6 +38,9 @@ def load_draws(paths: Sequence[Path]) -> Loaded:
         Either CmdStan CSV files (``*.csv``), all chains of one run, in chain
         order; or a single DataTree file: netCDF (``*.nc``) or a Zarr store
         (``*.zarr`` directory).
+    gate
+        The project boundary every file is opened through (default: type and
+        size checks only, for one's own files).
 
     Returns
     -------
@@ -44,11 +54,11 @@ def load_draws(paths: Sequence[Path]) -> Loaded:
         return Loaded(tree=None)
     kinds = {_kind(p) for p in paths}
     if kinds == {"csv"}:
-        return load_cmdstan_csv(paths)
+        return load_cmdstan_csv(paths, gate)
     if len(paths) == 1 and kinds <= {"netcdf", "zarr"}:
         from auditor.loaders.datatree_file import load_datatree
 
-        return load_datatree(paths[0])
+        return load_datatree(paths[0], gate)
     if kinds <= {"netcdf", "zarr"}:
         return Loaded(
             tree=None,
@@ -81,8 +91,11 @@ def _kind(path: Path) -> str:
         return "csv"
     if suffix in (".nc", ".nc4", ".netcdf", ".h5", ".hdf5"):
         return "netcdf"
-    if suffix == ".zarr" or (path.is_dir() and (path / ".zgroup").exists()):
+    if suffix == ".zarr":
         return "zarr"
-    if path.is_dir() and (path / "zarr.json").exists():
-        return "zarr"
+    try:
+        if path.is_dir() and ((path / ".zgroup").exists() or (path / "zarr.json").exists()):
+            return "zarr"
+    except OSError:  # a name too long, a link loop: the loader will say so
+        pass
     return "other"

@@ -15,6 +15,7 @@ of dotted paths (``data`` or ``data.file``), so lookups go by the last path part
 
 from __future__ import annotations
 
+import hashlib
 import math
 import re
 import warnings
@@ -26,7 +27,8 @@ from pathlib import Path
 import numpy as np
 import xarray as xr
 
-from auditor.loaders.problems import Loaded, LoadProblem
+from auditor.boundary import Boundary, Refused
+from auditor.loaders.problems import Loaded, LoadProblem, refused_problem
 from auditor.loaders.stats_vocab import CMDSTAN, normalize_sample_stats
 from auditor.model import SamplerSettings
 
@@ -174,7 +176,83 @@ def _parse_header_lines(path: Path, lines: Sequence[str]) -> CmdStanHeader | Non
     return header
 
 
-def read_cmdstan_header(path: Path) -> CmdStanHeader | None:
+#: Bytes read at most to find the column line (a run with a million quantities
+#: has a column line of about 20 MB).
+_HEAD_LIMIT = 64 * 1024 * 1024
+_HEAD_CHUNK = 1 << 20
+_BOM = "\ufeff"
+
+
+def _looks_binary(data: bytes) -> bool:
+    return b"\x00" in data[:4096]
+
+
+def _head_lines(path: Path, gate: Boundary) -> tuple[list[str] | None, str | None]:
+    """The lines of a file up to its column line, or (None, reason it is not CSV text).
+
+    Reads in chunks and stops at the first complete line that is not a comment,
+    so a huge or endless file costs at most :data:`_HEAD_LIMIT` bytes.
+
+    Raises
+    ------
+    Refused
+        The boundary refused the file (outside, special file).
+    """
+    buf = bytearray()
+    with gate.open(path, check_size=False) as fh:
+        while len(buf) < _HEAD_LIMIT:
+            chunk = fh.read(_HEAD_CHUNK)
+            if not chunk:
+                break
+            start = len(buf)
+            buf += chunk
+            if start == 0 and _looks_binary(buf):
+                return None, "a binary file, not CSV text"
+            if _first_data_line_done(buf, start):
+                break
+    if not buf:
+        return None, "an empty file (0 bytes)"
+    if _looks_binary(buf):
+        return None, "a binary file, not CSV text"
+    text = buf.decode("utf-8", errors="replace").removeprefix(_BOM)
+    return text.splitlines(keepends=True), None
+
+
+def _first_data_line_done(buf: bytearray, start: int) -> bool:
+    """Whether ``buf`` holds a complete line that is neither blank nor a comment."""
+    pos = 0
+    while True:
+        end = buf.find(b"\n", pos)
+        if end < 0:
+            return False
+        line = bytes(buf[pos:end]).lstrip(b"\xef\xbb\xbf").strip()
+        if line and not line.startswith(b"#"):
+            return True
+        pos = end + 1
+
+
+def sniff_cmdstan(path: Path, gate: Boundary | None = None) -> tuple[CmdStanHeader | None, str]:
+    """The header of a CmdStan CSV, or ``(None, why it is not one)``.
+
+    Cheap: reads only up to the column line, never the draws.
+
+    Raises
+    ------
+    Refused
+        The boundary refused the file.
+    """
+    gate = gate or Boundary.unconfined()
+    lines, reason = _head_lines(Path(path), gate)
+    if lines is None:
+        return None, reason or "not CSV text"
+    header = _parse_header_lines(Path(path), lines)
+    if header is None:
+        return None, ("not a CmdStan CSV: no 'stan_version_major' header comment and no "
+                      "sampler columns ending in '__'")
+    return header, ""
+
+
+def read_cmdstan_header(path: Path, gate: Boundary | None = None) -> CmdStanHeader | None:
     """Read only the comment header and the column line of a CmdStan CSV.
 
     Cheap: stops at the column line, never reads the draws.
@@ -184,19 +262,10 @@ def read_cmdstan_header(path: Path) -> CmdStanHeader | None:
     CmdStanHeader or None
         ``None`` when the file cannot be read or is not a CmdStan CSV.
     """
-    path = Path(path)
-    lines: list[str] = []
     try:
-        with path.open("r", encoding="utf-8", errors="replace") as fh:
-            for raw in fh:
-                lines.append(raw)
-                if raw.strip() and not raw.startswith("#"):
-                    break
-                if len(lines) > 10_000:  # not a CmdStan header
-                    return None
-    except (OSError, ValueError):
+        return sniff_cmdstan(path, gate)[0]
+    except (Refused, OSError):
         return None
-    return _parse_header_lines(path, lines)
 
 
 # --------------------------------------------------------------------------- values
@@ -265,6 +334,14 @@ def _is_fixed_param(h: CmdStanHeader) -> bool:
 
 
 # --------------------------------------------------------------------------- one file
+
+
+def _all_numbers(fields: Sequence[str]) -> bool:
+    """Whether every field reads as a number (a data row where names belong)."""
+    for f in fields:
+        if _as_float(f) is None:
+            return False
+    return True
 
 
 def _parse_rows(
@@ -356,17 +433,31 @@ def _parse_rows_slowly(
     return out
 
 
-def _parse_file(path: Path, problems: list[LoadProblem]) -> _Chain | None:
+def _parse_file(path: Path, problems: list[LoadProblem], gate: Boundary) -> _Chain | None:
     """Parse one CmdStan CSV; ``None`` (with a problem) when it is unusable."""
     try:
-        text = path.read_text(encoding="utf-8", errors="replace")
+        raw = gate.read_bytes(path)
+    except Refused as exc:
+        problems.append(refused_problem(path, exc))
+        return None
     except OSError as exc:
         problems.append(LoadProblem(path, f"cannot read the file: {exc.strerror or exc}"))
         return None
-    if "\x00" in text[:4096]:
-        problems.append(LoadProblem(path, "binary file, not a CmdStan CSV"))
+    if not raw:
+        problems.append(LoadProblem(path, "an empty file (0 bytes), not a CmdStan CSV"))
         return None
+    if _looks_binary(raw):
+        problems.append(LoadProblem(path, "a binary file, not a CmdStan CSV"))
+        return None
+    text = raw.decode("utf-8", errors="replace")
+    del raw
+    if text.startswith(_BOM):
+        text = text[1:]
+        problems.append(LoadProblem(
+            path, "the file starts with a byte-order mark (an editor added it); read without it",
+            line=1, kind="note"))
     lines = text.splitlines()
+    del text
     header = _parse_header_lines(path, lines)
     if header is None:
         problems.append(
@@ -379,6 +470,11 @@ def _parse_file(path: Path, problems: list[LoadProblem]) -> _Chain | None:
         return None
     if not header.columns or header.column_line is None:
         problems.append(LoadProblem(path, "the file has a header but no line of column names"))
+        return None
+    if _all_numbers(header.columns):
+        problems.append(LoadProblem(
+            path, "the line of column names is missing: this line holds numbers, so the draws "
+            "cannot be matched to quantities; the file is left out", line=header.column_line))
         return None
     dupes = [c for c, n in Counter(header.columns).items() if n > 1]
     if dupes:
@@ -407,7 +503,13 @@ def _parse_file(path: Path, problems: list[LoadProblem]) -> _Chain | None:
                 step_size = math.nan if value is None else value
             m = _ELAPSED.match(line)
             if m:
-                elapsed[m.group(2).lower()] = float(m.group(1))
+                seconds = _as_float(m.group(1))
+                if seconds is None:
+                    problems.append(LoadProblem(
+                        path, f"the timing line says {m.group(1)!r} seconds, not a number; "
+                        "the time is left out", line=number, kind="note"))
+                else:
+                    elapsed[m.group(2).lower()] = seconds
             continue
         rows.append(line)
         numbers.append(number)
@@ -525,7 +627,8 @@ def _drop_copies(chains: list[_Chain], n_total: int, problems: list[LoadProblem]
         if twin is not None:
             reason = f"the same file is given twice (as {twin.header.path} too)"
         elif not _is_fixed_param(c.header) and c.data.size:
-            key = c.data.tobytes()
+            # A digest, not the bytes: a copy of every chain would double the memory.
+            key = hashlib.blake2b(np.ascontiguousarray(c.data).data, digest_size=32).digest()
             twin = seen_draws.get(key)
             if twin is not None:
                 reason = (
@@ -573,47 +676,138 @@ def _note_data_files(chains: list[_Chain], problems: list[LoadProblem]) -> None:
 # --------------------------------------------------------------------------- datasets
 
 
+#: Longest index we read as an index (CmdStan writes sizes that fit in an int).
+_MAX_INDEX_DIGITS = 10
+#: An array may have at most this many elements per column that names one of
+#: them; beyond it the declared shape is absurd (one column ``theta.4294967296``
+#: would otherwise ask for an array of 4 billion elements per draw).
+_MAX_FILL = 4
+
+
 def _split_column(name: str) -> tuple[str, tuple[int, ...]]:
     """``eta.2.1`` -> ("eta", (2, 1)); names that are not ``base.i.j`` -> (name, ())."""
     parts = name.split(".")
-    if len(parts) > 1 and all(p.isdigit() for p in parts[1:]):
+    if len(parts) > 1 and parts[0] and all(
+        p.isdigit() and p.isascii() and len(p) <= _MAX_INDEX_DIGITS for p in parts[1:]
+    ):
         return parts[0], tuple(int(p) for p in parts[1:])
     return name, ()
 
 
-def _variables(
-    columns: Sequence[str], values: np.ndarray, chain_dim: int = 2
-) -> dict[str, xr.Variable]:
-    """Group ``name.i.j`` columns into arrays of shape (chain, draw, ...).
+@dataclass
+class _Array:
+    """The columns of one array variable: positions in the file and the array's shape."""
 
-    ``values`` has shape (chain, draw, column). Indices are 1-based in the file
-    and become 0-based positions, so the column-major order CmdStan writes lands
-    in the right cells.
+    columns: list[int]
+    flat: list[int]  # cell of each column in the C-order flattened array
+    shape: tuple[int, ...]
+
+
+def _layout(
+    columns: Sequence[str], path: Path, line: int | None, problems: list[LoadProblem]
+) -> dict[str, _Array | int]:
+    """How the model columns form variables: a column number for a scalar, an
+    :class:`_Array` for ``name.i.j`` columns.
+
+    The declared shape is checked before anything is allocated: CmdStan writes
+    every element of an array, so the indices of one name must fill their shape
+    exactly, starting at 1. Names whose indices do not (index 0, gaps, a huge
+    index, mixed numbers of indices) are reported and kept as separate columns
+    under their own names.
     """
     groups: dict[str, list[tuple[int, tuple[int, ...]]]] = {}
     for j, col in enumerate(columns):
         base, idx = _split_column(col)
         groups.setdefault(base, []).append((j, idx))
-    out: dict[str, xr.Variable] = {}
-    lead = values.shape[:chain_dim]
+    out: dict[str, _Array | int] = {}
     for base, members in groups.items():
         ndims = {len(idx) for _, idx in members}
-        cols = [j for j, _ in members]
         if ndims == {0} and len(members) == 1:
-            out[base] = xr.Variable(("chain", "draw"), values[..., cols[0]])
+            out[base] = members[0][0]
             continue
+        why = None
         if len(ndims) != 1 or 0 in ndims:
-            # Mixed forms under one name (unusual): keep every column as it is named.
+            why = "some columns have a different number of indices"
+        else:
+            idx = [i for _, i in members]
+            shape = tuple(max(i[k] for i in idx) for k in range(len(idx[0])))
+            cells = math.prod(shape)
+            size = "x".join(map(str, shape))
+            if any(min(i) < 1 for i in idx):
+                why = "an index is 0, but CmdStan numbers elements from 1"
+            elif len(set(idx)) != len(idx):
+                why = "an index appears twice"
+            elif cells > _MAX_FILL * len(members):
+                why = (f"the indices span a {size} array ({cells:,} elements) but there are "
+                       f"only {len(members):,} columns")
+            elif cells != len(members):
+                # A few elements missing (a hand-edited file): keep the array, with
+                # the missing elements read as NaN, and say so.
+                problems.append(LoadProblem(
+                    path, f"columns {base}.* give {len(members):,} of the {cells:,} elements "
+                    f"of a {size} array; the missing elements are read as NaN", line=line))
+        if why is not None:
+            problems.append(LoadProblem(
+                path, f"columns {base}.*: {why}; they are kept as separate quantities named as "
+                "in the file", line=line))
             for j, _ in members:
-                out[columns[j]] = xr.Variable(("chain", "draw"), values[..., j])
+                out[columns[j]] = j
             continue
-        idx = np.array([i for _, i in members]) - 1
-        shape = tuple(int(s) for s in idx.max(axis=0) + 1)
-        flat = np.ravel_multi_index(tuple(idx.T), shape)
-        arr = np.full((*lead, int(np.prod(shape))), np.nan)
-        arr[..., flat] = values[..., cols]
-        dims = ("chain", "draw", *(f"{base}_dim_{k}" for k in range(len(shape))))
-        out[base] = xr.Variable(dims, arr.reshape(*lead, *shape))
+        # Indices are 1-based in the file; the column-major order CmdStan writes
+        # lands in the right cells of a C-order array.
+        flat = [int(np.ravel_multi_index(tuple(v - 1 for v in i), shape)) for i in idx]
+        out[base] = _Array([j for j, _ in members], flat, shape)
+    return _safe_names(out, path, line, problems)
+
+
+def _safe_names(
+    layout: dict[str, _Array | int], path: Path, line: int | None, problems: list[LoadProblem]
+) -> dict[str, _Array | int]:
+    """Rename variables whose names the normalized tree cannot hold.
+
+    ``chain`` and ``draw`` are the draws' own dimensions and ``<name>_dim_<k>``
+    the dimensions of arrays; a ``/`` would be read as a group path. Stan allows
+    the first two as identifiers, so a real program can use them.
+    """
+    taken = set(layout)
+    reserved = {"chain", "draw"} | {
+        f"{name}_dim_{k}" for name, spec in layout.items()
+        if isinstance(spec, _Array) for k in range(len(spec.shape))}
+    out: dict[str, _Array | int] = {}
+    for name, spec in layout.items():
+        new = name.replace("/", "_")
+        while new in reserved or (new != name and new in taken):
+            new += "_"
+        if new != name:
+            problems.append(LoadProblem(
+                path, f"the quantity named {name!r} is shown as {new!r}: its name is one the "
+                "draws' dimensions use, or holds a '/'", line=line, kind="note"))
+            taken.add(new)
+        out[new] = spec
+    return out
+
+
+def _variables(
+    layout: dict[str, _Array | int], values: np.ndarray, chain_dim: int = 2
+) -> dict[str, xr.Variable]:
+    """Arrays of shape (chain, draw, ...) for each variable of ``layout``.
+
+    ``values`` has shape (chain, draw, column).
+    """
+    out: dict[str, xr.Variable] = {}
+    lead = values.shape[:chain_dim]
+    for name, spec in layout.items():
+        if isinstance(spec, int):
+            out[name] = xr.Variable(("chain", "draw"), values[..., spec])
+            continue
+        cells = math.prod(spec.shape)
+        if cells == len(spec.columns):
+            arr = np.empty((*lead, cells), dtype=values.dtype)
+        else:  # missing elements (reported by _layout) stay NaN
+            arr = np.full((*lead, cells), np.nan, dtype=values.dtype)
+        arr[..., spec.flat] = values[..., spec.columns]
+        dims = ("chain", "draw", *(f"{name}_dim_{k}" for k in range(len(spec.shape))))
+        out[name] = xr.Variable(dims, arr.reshape(*lead, *spec.shape))
     return out
 
 
@@ -646,7 +840,7 @@ def _coords(n_chains: int, n_draws: int, variables: dict[str, xr.Variable]) -> d
 
 
 def _group_datasets(
-    chains: list[_Chain], warmup: bool, max_depth: int | None
+    chains: list[_Chain], warmup: bool, max_depth: int | None, layout: dict[str, _Array | int]
 ) -> tuple[xr.Dataset, xr.Dataset | None]:
     columns = chains[0].header.columns
     if warmup:
@@ -656,7 +850,7 @@ def _group_datasets(
     n_chains, n_draws = stacked.shape[:2]
     stat_cols = [j for j, c in enumerate(columns) if c.endswith("__")]
     model_cols = [j for j, c in enumerate(columns) if not c.endswith("__")]
-    variables = _variables([columns[j] for j in model_cols], stacked[..., model_cols])
+    variables = _variables(layout, stacked[..., model_cols])
     posterior = xr.Dataset(variables, coords=_coords(n_chains, n_draws, variables))
     stats = None
     if stat_cols:
@@ -701,13 +895,16 @@ def _settings(chains: list[_Chain]) -> SamplerSettings:
     )
 
 
-def load_cmdstan_csv(paths: Sequence[Path]) -> Loaded:
+def load_cmdstan_csv(paths: Sequence[Path], gate: Boundary | None = None) -> Loaded:
     """Load CmdStan CSV files that are the chains of one run.
 
     Parameters
     ----------
     paths
         One file per chain, in chain order.
+    gate
+        The boundary every file is opened through (default: type and size
+        checks only).
 
     Returns
     -------
@@ -722,8 +919,9 @@ def load_cmdstan_csv(paths: Sequence[Path]) -> Loaded:
     """
     problems: list[LoadProblem] = []
     parsed: list[_Chain] = []
+    gate = gate or Boundary.unconfined()
     for p in paths:
-        chain = _parse_file(Path(p), problems)
+        chain = _parse_file(Path(p), problems, gate)
         if chain is not None:
             parsed.append(chain)
     chains = _check_chains(parsed, problems)
@@ -747,7 +945,9 @@ def load_cmdstan_csv(paths: Sequence[Path]) -> Loaded:
             if c.n_rows_seen == 0:
                 problems.append(LoadProblem(c.header.path, "the file has no draws (no data rows)"))
         return Loaded(tree=None, settings=settings, problems=problems)
-    posterior, stats = _group_datasets(chains, False, settings.max_depth)
+    model_columns = [c for c in h.columns if not c.endswith("__")]
+    layout = _layout(model_columns, h.path, h.column_line, problems)
+    posterior, stats = _group_datasets(chains, False, settings.max_depth, layout)
     attrs = {
         "inference_library": "CmdStan",
         "source_format": "cmdstan-csv",
@@ -766,7 +966,7 @@ def load_cmdstan_csv(paths: Sequence[Path]) -> Loaded:
         stats.attrs.update(attrs)
         groups["sample_stats"] = stats
     if any(c.n_warmup for c in chains):
-        w_post, w_stats = _group_datasets(chains, True, settings.max_depth)
+        w_post, w_stats = _group_datasets(chains, True, settings.max_depth, layout)
         w_post.attrs.update(attrs)
         groups["warmup_posterior"] = w_post
         if w_stats is not None:

@@ -15,7 +15,8 @@ from typing import Any
 import numpy as np
 import xarray as xr
 
-from auditor.loaders.problems import Loaded, LoadProblem
+from auditor.boundary import Boundary, Refused
+from auditor.loaders.problems import Loaded, LoadProblem, refused_problem
 from auditor.loaders.stats_vocab import normalize_sample_stats
 from auditor.model import SamplerSettings
 
@@ -52,17 +53,38 @@ def _engine_for(path: Path) -> str:
     return "h5netcdf"
 
 
-def _open(path: Path, engine: str) -> xr.DataTree:
-    """Read the whole tree into memory and close the file."""
+def _declared_bytes(tree: xr.DataTree) -> int:
+    """Bytes the arrays of a lazily opened tree would take once loaded."""
+    return sum(int(node.dataset.nbytes) for node in tree.subtree)
+
+
+def _open(source: Any, engine: str, path: Path, gate: Boundary,
+          problems: list[LoadProblem]) -> xr.DataTree | None:
+    """Read the whole tree into memory and close the file.
+
+    The sizes the file declares are checked before anything is loaded: a file
+    of a few bytes can declare dimensions of billions of elements.
+    """
     with warnings.catch_warnings():
         # Reader chatter (format notices) is not about the user's analysis.
         warnings.simplefilter("ignore")
-        with xr.open_datatree(path, engine=engine) as lazy:
-            tree = lazy.load().copy(deep=True)
-    return tree
+        with xr.open_datatree(source, engine=engine) as lazy:
+            declared = _declared_bytes(lazy)
+            if gate.max_bytes is not None and declared > gate.max_bytes:
+                problems.append(LoadProblem(
+                    path,
+                    f"the file declares arrays of {declared / 1e6:,.0f} MB in all, more than "
+                    f"the limit of {gate.max_bytes / 1e6:,.0f} MB for one input (a share of "
+                    "the memory available); it was not loaded",
+                    kind="too-large",
+                ))
+                return None
+            return lazy.load().copy(deep=True)
 
 
-def _read(path: Path, problems: list[LoadProblem]) -> tuple[xr.DataTree | None, str]:
+def _read(
+    path: Path, problems: list[LoadProblem], gate: Boundary
+) -> tuple[xr.DataTree | None, str]:
     engine = _engine_for(path)
     if engine == "zarr" and importlib.util.find_spec("zarr") is None:
         problems.append(
@@ -73,35 +95,38 @@ def _read(path: Path, problems: list[LoadProblem]) -> tuple[xr.DataTree | None, 
             )
         )
         return None, engine
-    if engine == "h5netcdf":
-        try:
-            with path.open("rb") as fh:
-                magic = fh.read(8)
-        except OSError as exc:
-            problems.append(LoadProblem(path, f"cannot read the file: {exc.strerror or exc}"))
-            return None, engine
-        if magic.startswith(b"CDF"):
-            problems.append(
-                LoadProblem(
-                    path,
-                    "a netCDF-3 classic file: that format has no groups, so it cannot hold "
-                    "an inference DataTree (posterior, sample_stats, ...)",
-                )
-            )
-            return None, engine
-        if magic != _HDF5_MAGIC:
-            problems.append(
-                LoadProblem(path, "not a netCDF-4/HDF5 file (the first bytes do not match)")
-            )
-            return None, engine
     try:
-        return _open(path, engine), engine
+        if engine == "zarr":
+            gate.admit_tree(path)
+            return _open(path, engine, path, gate, problems), engine
+        with gate.open(path) as fh:
+            magic = fh.read(8)
+            if magic.startswith(b"CDF"):
+                problems.append(
+                    LoadProblem(
+                        path,
+                        "a netCDF-3 classic file: that format has no groups, so it cannot "
+                        "hold an inference DataTree (posterior, sample_stats, ...)",
+                    )
+                )
+                return None, engine
+            if magic != _HDF5_MAGIC:
+                problems.append(
+                    LoadProblem(path, "not a netCDF-4/HDF5 file (the first bytes do not match)")
+                )
+                return None, engine
+            fh.seek(0)
+            # The open, checked file object goes to the reader, never the name again.
+            return _open(fh, engine, path, gate, problems), engine
+    except Refused as exc:
+        problems.append(refused_problem(path, exc))
+        return None, engine
     except Exception as exc:  # noqa: BLE001 - readers raise many types; report, never crash
         problems.append(
             LoadProblem(
                 path,
                 f"the file could not be read as a DataTree ({engine}): "
-                f"{type(exc).__name__}: {exc}",
+                f"{type(exc).__name__}: {str(exc)[:300]}",
             )
         )
         return None, engine
@@ -220,8 +245,8 @@ def _settings(tree: xr.DataTree, raw_stats: set[str]) -> SamplerSettings:
     )
 
 
-def load_datatree(path: Path) -> Loaded:
-    """Load a DataTree netCDF file or Zarr store.
+def load_datatree(path: Path, gate: Boundary | None = None) -> Loaded:
+    """Load a DataTree netCDF file or Zarr store (opened through ``gate``).
 
     Returns
     -------
@@ -231,11 +256,12 @@ def load_datatree(path: Path) -> Loaded:
         from ``tree_depth`` when the maximum depth is known).
     """
     path = Path(path)
+    gate = gate or Boundary.unconfined()
     problems: list[LoadProblem] = []
-    if not path.exists():
+    if not (path.exists() or path.is_symlink()):
         problems.append(LoadProblem(path, "the file does not exist"))
         return Loaded(tree=None, problems=problems)
-    raw, engine = _read(path, problems)
+    raw, engine = _read(path, problems, gate)
     if raw is None:
         return Loaded(tree=None, problems=problems)
     groups = {name: raw[name].to_dataset() for name in raw.children}

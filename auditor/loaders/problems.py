@@ -12,12 +12,17 @@ from pathlib import Path
 
 import xarray as xr
 
+from auditor.boundary import Refused
 from auditor.model import SamplerSettings
 
 #: Problem kinds. ``unreadable``: the file, or part of it, could not be used
 #: (the message says what was kept); ``inconsistent-chains``: chains of one run
-#: disagree; ``note``: worth knowing, nothing was lost.
-KINDS: tuple[str, ...] = ("unreadable", "inconsistent-chains", "note")
+#: disagree; ``outside-project``, ``special-file``, ``too-large``: the project
+#: boundary refused the file (see :mod:`auditor.boundary`); ``note``: worth
+#: knowing, nothing was lost.
+KINDS: tuple[str, ...] = (
+    "unreadable", "inconsistent-chains", "outside-project", "special-file", "too-large", "note",
+)
 
 
 @dataclass
@@ -67,3 +72,8 @@ class Loaded:
     settings: SamplerSettings = field(default_factory=SamplerSettings)
     sources: list[Path] = field(default_factory=list)
     problems: list[LoadProblem] = field(default_factory=list)
+
+
+def refused_problem(path: Path, exc: Refused) -> LoadProblem:
+    """The problem for a file the boundary refused to open."""
+    return LoadProblem(path, exc.reason, kind=exc.kind)

@@ -25,7 +25,8 @@ from typing import Any
 
 import numpy as np
 
-from auditor.loaders.problems import LoadProblem
+from auditor.boundary import Boundary, Refused
+from auditor.loaders.problems import LoadProblem, refused_problem
 
 Value = np.ndarray | int | float
 
@@ -40,8 +41,18 @@ _SPECIAL_STRINGS = {
 }
 
 
-def read_stan_data(path: Path) -> tuple[dict[str, Value], list[LoadProblem]]:
+#: Most values one variable may hold: an R dump ``1:n`` or ``integer(n)`` of a few
+#: bytes can ask for billions of elements, which would exhaust memory.
+MAX_VALUES = 50_000_000
+_INT64_MAX = 2**63 - 1
+
+
+def read_stan_data(
+    path: Path, gate: Boundary | None = None
+) -> tuple[dict[str, Value], list[LoadProblem]]:
     """Read a Stan data file (JSON, or R dump for ``.R``/``.data.R``/others).
+
+    The file is opened through ``gate`` (default: type and size checks only).
 
     Returns
     -------
@@ -51,8 +62,11 @@ def read_stan_data(path: Path) -> tuple[dict[str, Value], list[LoadProblem]]:
         line where there is one. Variables that could not be read are left out.
     """
     path = Path(path)
+    gate = gate or Boundary.unconfined()
     try:
-        text = path.read_text(encoding="utf-8", errors="replace")
+        text = gate.read_text(path, errors="replace")
+    except Refused as exc:
+        return {}, [refused_problem(path, exc)]
     except OSError as exc:
         return {}, [LoadProblem(path, f"cannot read the data file: {exc.strerror or exc}")]
     if path.suffix.lower() == ".json" or (
@@ -65,9 +79,18 @@ def read_stan_data(path: Path) -> tuple[dict[str, Value], list[LoadProblem]]:
 # --------------------------------------------------------------------------- JSON
 
 
-def _line_of_key(text: str, name: str) -> int | None:
-    m = re.search(r'"' + re.escape(name) + r'"\s*:', text)
-    return None if m is None else text.count("\n", 0, m.start()) + 1
+_JSON_KEY = re.compile(r'"((?:[^"\\\n]|\\.)*)"\s*:')
+
+
+def _key_lines(text: str) -> dict[str, int]:
+    """Line of the first ``"name":`` of every key, in one pass over the text."""
+    out: dict[str, int] = {}
+    line, pos = 1, 0
+    for m in _JSON_KEY.finditer(text):
+        line += text.count("\n", pos, m.start())
+        pos = m.start()
+        out.setdefault(m.group(1), line)
+    return out
 
 
 def _json_value(value: Any) -> tuple[Value | None, str | None]:
@@ -75,6 +98,8 @@ def _json_value(value: Any) -> tuple[Value | None, str | None]:
     if isinstance(value, bool):
         return None, "true/false is not a Stan data value"
     if isinstance(value, int):
+        if abs(value) > _INT64_MAX:
+            return None, "an integer too large for Stan (beyond 64 bits)"
         return value, None
     if isinstance(value, float):
         return value, None
@@ -117,7 +142,7 @@ def _flatten(value: list) -> tuple[list, tuple[int, ...], str | None]:
     for v in value:
         scalar, reason = _json_value(v)
         if reason:
-            return [], (), f"element {v!r}: {reason}"
+            return [], (), f"element {repr(v)[:40]}: {reason}"
         flat.append(scalar)
     return flat, (len(value),), None
 
@@ -129,14 +154,21 @@ def _read_json(path: Path, text: str) -> tuple[dict[str, Value], list[LoadProble
     except json.JSONDecodeError as exc:
         message = f"not valid JSON: {exc.msg} (column {exc.colno})"
         return {}, [LoadProblem(path, message, exc.lineno)]
+    except RecursionError:
+        return {}, [LoadProblem(path, "the JSON is nested too deeply to read", 1)]
     if not isinstance(doc, dict):
         return {}, [LoadProblem(path, "Stan JSON data must be one object {...} of variables", 1)]
     values: dict[str, Value] = {}
+    lines: dict[str, int] | None = None
     for name, raw in doc.items():
-        value, reason = _json_value(raw)
+        try:
+            value, reason = _json_value(raw)
+        except RecursionError:
+            value, reason = None, "the array is nested too deeply to read"
         if reason:
+            lines = _key_lines(text) if lines is None else lines
             problems.append(
-                LoadProblem(path, f"variable {name!r} left out: {reason}", _line_of_key(text, name))
+                LoadProblem(path, f"variable {name[:80]!r} left out: {reason}", lines.get(name))
             )
             continue
         values[name] = value
@@ -242,10 +274,11 @@ class _DumpParser:
             tok = self.next()
         if tok.kind == "number":
             t = tok.text
-            if t.endswith("L"):
-                return sign * int(float(t[:-1])), True
-            if re.fullmatch(r"\d+", t):
-                return sign * int(t), True
+            if t.endswith("L") or re.fullmatch(r"\d+", t):
+                number = float(t.removesuffix("L"))
+                if not number.is_integer() or abs(number) > _INT64_MAX:
+                    raise _DumpError(f"{t[:40]} is not a whole number Stan can hold", tok.line)
+                return sign * int(t) if t.isdigit() else sign * int(number), True
             return sign * float(t), False
         if tok.kind == "name":
             special = {"Inf": math.inf, "NaN": math.nan, "NA": math.nan}.get(tok.text)
@@ -264,7 +297,10 @@ class _DumpParser:
                 last_int or float(last).is_integer()
             ):
                 raise _DumpError("a sequence a:b needs whole numbers", tok.line)
+            if not all(math.isfinite(v) for v in (first, last)):
+                raise _DumpError("a sequence a:b needs finite ends", tok.line)
             a, b = int(first), int(last)
+            _check_count(abs(b - a) + 1, tok.line)
             step = 1 if b >= a else -1
             return list(range(a, b + step, step)), True
         return [first], is_int
@@ -282,7 +318,10 @@ class _DumpParser:
             self.expect("(")
             if tok.text != "c":
                 n, _ = self.scalar()
-                self.expect(")")
+                end = self.expect(")")
+                if not (math.isfinite(n) and float(n).is_integer() and n >= 0):
+                    raise _DumpError(f"{tok.text}(n) needs a whole number n >= 0", end.line)
+                _check_count(int(n), end.line)
                 return [0 if tok.text == "integer" else 0.0] * int(n), tok.text == "integer"
             values: list[float | int] = []
             all_int = True
@@ -292,6 +331,7 @@ class _DumpParser:
             while True:
                 part, is_int = self.element()
                 values.extend(part)
+                _check_count(len(values), self.toks[self.i - 1].line)
                 all_int = all_int and is_int
                 sep = self.next()
                 if sep.text == ")":
@@ -313,13 +353,16 @@ class _DumpParser:
                 self.expect("=")
                 arg, _ = self.vector()
                 if key.text in (".Dim", "dim", '".Dim"'):
+                    if not all(math.isfinite(d) and float(d).is_integer() and d >= 0
+                               for d in arg):
+                        raise _DumpError(".Dim needs whole numbers >= 0", key.line)
                     dims = [int(d) for d in arg]
             end = self.expect(")")
             if dims is None:
                 raise _DumpError("structure(...) without .Dim", end.line)
-            if int(np.prod(dims)) != len(values):
+            if math.prod(dims) != len(values):
                 raise _DumpError(
-                    f".Dim = {tuple(dims)} needs {int(np.prod(dims))} values but "
+                    f".Dim = {tuple(dims)} needs {math.prod(dims)} values but "
                     f"{len(values)} are given",
                     end.line,
                 )
@@ -335,6 +378,13 @@ class _DumpParser:
         if is_c or len(values) != 1:  # c(x) is an array of length 1, x a scalar
             return np.array(values, dtype=np.int64 if all_int else float)
         return values[0]
+
+
+def _check_count(n: int, line: int) -> None:
+    if n > MAX_VALUES:
+        raise _DumpError(
+            f"asks for {n:,} values, more than the {MAX_VALUES:,} this tool reads for one "
+            "variable", line)
 
 
 def _read_rdump(path: Path, text: str) -> tuple[dict[str, Value], list[LoadProblem]]:

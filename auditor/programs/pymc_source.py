@@ -15,6 +15,7 @@ import math
 from dataclasses import dataclass, field
 from pathlib import Path
 
+from auditor.boundary import Boundary, Refused
 from auditor.programs.summary import (
     LOCATION_SCALE_ARGS,
     Arg,
@@ -93,6 +94,10 @@ _FAMILIES: dict[str, _Family] = {
 class _Reader:
     source: str
     summary: ProgramSummary
+    #: The source's lines as UTF-8 bytes (ast positions are byte offsets), split
+    #: once: ``ast.get_source_segment`` splits the whole source on every call,
+    #: which made reading a long generated model quadratic.
+    byte_lines: list[bytes] = field(default_factory=list)
     modules: set[str] = field(default_factory=set)
     direct: dict[str, str] = field(default_factory=dict)
     #: Python variable -> name of the PyMC variable it holds.
@@ -107,8 +112,27 @@ class _Reader:
     def text(self, node: ast.AST | None) -> str:
         if node is None:
             return ""
-        segment = ast.get_source_segment(self.source, node)
+        segment = self.segment(node)
         return " ".join(segment.split()) if segment else ast.unparse(node)
+
+    def segment(self, node: ast.AST) -> str | None:
+        """The source text of ``node``, as ``ast.get_source_segment`` gives it."""
+        try:
+            first, last = node.lineno - 1, node.end_lineno - 1  # type: ignore[attr-defined]
+            start, end = node.col_offset, node.end_col_offset  # type: ignore[attr-defined]
+        except AttributeError:
+            return None
+        if not self.byte_lines:
+            self.byte_lines = self.source.encode("utf-8").splitlines(keepends=True)
+        if first < 0 or last >= len(self.byte_lines) or start is None or end is None:
+            return None
+        if first == last:
+            chunk = self.byte_lines[first][start:end]
+        else:
+            chunk = b"".join([self.byte_lines[first][start:],
+                              *self.byte_lines[first + 1:last],
+                              self.byte_lines[last][:end]])
+        return chunk.decode("utf-8", "replace")
 
     def names(self, node: ast.AST | None) -> tuple[str, ...]:
         """Names used in an expression (not called functions), as PyMC names."""
@@ -476,7 +500,10 @@ def literal(node: ast.AST | None) -> float | None:
     if isinstance(node, ast.Constant):
         v = node.value
         if isinstance(v, int | float) and not isinstance(v, bool):
-            return float(v)
+            try:
+                return float(v)
+            except OverflowError:  # an integer literal beyond any float
+                return math.inf if v > 0 else -math.inf
         return None
     if isinstance(node, ast.UnaryOp) and isinstance(node.op, ast.USub | ast.UAdd):
         inner = literal(node.operand)
@@ -486,14 +513,19 @@ def literal(node: ast.AST | None) -> float | None:
     return None
 
 
-def read_pymc(path: Path) -> ProgramSummary:
+def read_pymc(path: Path, gate: Boundary | None = None) -> ProgramSummary:
     """Summarize the PyMC model in the Python file at ``path``; never raises on bad input.
 
-    The file is parsed, never imported or run.
+    The file is opened through ``gate`` (default: type and size checks only),
+    parsed, and never imported or run.
     """
     summary = ProgramSummary(language="pymc", path=str(path))
+    gate = gate or Boundary.unconfined()
     try:
-        source = path.read_text(encoding="utf-8")
+        source = gate.read_text(path)
+    except Refused as exc:
+        summary.syntax_errors.append(SyntaxProblem(exc.reason, 1, 1, str(path), exc.kind))
+        return summary
     except UnicodeDecodeError:
         summary.syntax_errors.append(SyntaxProblem("the file is not UTF-8 text", 1, 1, str(path)))
         return summary

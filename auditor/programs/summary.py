@@ -160,12 +160,19 @@ class Likelihood:
 
 @dataclass
 class SyntaxProblem:
-    """A parse error with its position (1-based) in ``path``."""
+    """A parse error with its position (1-based) in ``path``.
+
+    ``kind`` is ``syntax`` for errors in the text; an ``#include`` the project
+    boundary refused has the boundary's problem kind (``outside-project``,
+    ``special-file``, ``too-large``, ``unreadable``) so that it is reported as
+    an input problem, not a syntax error.
+    """
 
     message: str
     line: int
     column: int
     path: str
+    kind: str = "syntax"
 
 
 @dataclass

@@ -101,6 +101,51 @@ def _input_cases(rng: np.random.Generator) -> None:
     (folder / "case.stan").write_text(
         "parameters {\n  real alpha  // expect: inputs.model-syntax\n}\n"
         "model {\n  alpha ~ normal(0, 1);\n}\n")
+    _boundary_cases(rng, iid)
+
+
+def _boundary_cases(rng: np.random.Generator, iid: dict) -> None:
+    """Cases of the rules about what the project boundary refused (issue 8)."""
+    inputs = RULES / "inputs"
+    for rule in ("outside-project", "special-file", "too-large", "remark"):
+        _case(rule, "good", iid, _healthy_stats(rng), stage_dir=inputs)
+    declared = '[[analysis]]\nname = "fit"\ndraws = ["fit-*.csv"]\n'
+    (inputs / "outside-project" / "cases" / "good" / "bayes-auditor.toml").write_text(
+        declared + 'data = "data.json"\n')
+    (inputs / "outside-project" / "cases" / "good" / "data.json").write_text('{"N": 3}\n')
+
+    # Outside the project: a data path that climbs out with '..' (never read).
+    folder = _case("outside-project", "bad", iid, _healthy_stats(rng), stage_dir=inputs)
+    (folder / "bayes-auditor.toml").write_text(declared + 'data = "../../shared/data.json"\n')
+    (folder / "expect.toml").write_text('[[hit]]\npath = "bayes-auditor.toml"\nline = 4\n')
+
+    # Special files: a FIFO named like a chain and a link loop. Git can hold
+    # neither, so the test makes them in a copy of the case ([[setup]]).
+    folder = _case("special-file", "bad", iid, _healthy_stats(rng), stage_dir=inputs)
+    (folder / "expect.toml").write_text(
+        '[[setup]]\nfifo = "fit-5.csv"\n[[setup]]\nlink = "loop"\nto = "."\n'
+        '[[hit]]\npath = "fit-5.csv"\n[[hit]]\npath = "loop"\n')
+
+    # Too large: a netCDF file of a few kilobytes that declares a 4 x 1000 x 10^7
+    # posterior (320 GB) and writes none of it; the sizes are checked before loading.
+    import h5netcdf
+
+    folder = inputs / "too-large" / "cases" / "bad"
+    if folder.exists():
+        shutil.rmtree(folder)
+    folder.mkdir(parents=True)
+    with h5netcdf.File(folder / "huge.nc", "w") as nc:
+        group = nc.create_group("posterior")
+        group.dimensions = {"chain": 4, "draw": 1000, "theta_dim_0": 10_000_000}
+        group.create_variable("theta", ("chain", "draw", "theta_dim_0"), dtype="f8",
+                              chunks=(1, 1, 100_000))
+    (folder / "expect.toml").write_text('[[hit]]\npath = "huge.nc"\n')
+
+    # Remark: chain 1 starts with a byte-order mark (read without it, said once).
+    folder = _case("remark", "bad", iid, _healthy_stats(rng), stage_dir=inputs)
+    path = folder / "fit-1.csv"
+    path.write_bytes(b"\xef\xbb\xbf" + path.read_bytes())
+    (folder / "expect.toml").write_text('[[hit]]\npath = "fit-1.csv"\nline = 1\n')
 
 
 def main() -> None:

@@ -8,9 +8,12 @@ in findings point at what the user wrote.
 
 from __future__ import annotations
 
+import os
 import re
 from dataclasses import dataclass, field
 from pathlib import Path
+
+from auditor.boundary import MAX_PATH_CHARS, Boundary, Refused
 
 #: ``#include "a.stan"``, ``#include <a.stan>`` or ``#include a.stan``, alone on its line.
 _INCLUDE = re.compile(
@@ -28,6 +31,7 @@ class IncludeProblem:
     path: str
     line: int
     column: int
+    kind: str = "syntax"
 
 
 @dataclass
@@ -51,15 +55,18 @@ class ExpandedSource:
         return self.origins[idx]
 
 
-def expand_includes(path: Path, text: str) -> ExpandedSource:
+def expand_includes(path: Path, text: str, gate: Boundary | None = None) -> ExpandedSource:
     """Substitute the ``#include`` lines of ``text`` (read from ``path``), recursively.
 
-    A missing or cyclic include becomes an :class:`IncludeProblem` and its line is
-    left out of the text (so the rest still parses); this never raises.
+    Included files are opened through ``gate`` (the project boundary; default:
+    type and size checks only). A missing, cyclic or refused include becomes an
+    :class:`IncludeProblem` and its line is left out of the text (so the rest
+    still parses); this never raises.
     """
     out = ExpandedSource(text="", origins=[])
     lines: list[str] = []
-    _expand(path, text, out, lines, stack=[path.resolve()], main=path)
+    gate = gate or Boundary.unconfined()
+    _expand(path, text, out, lines, stack=[_real(path)], main=path, gate=gate)
     out.text = "\n".join(lines) + ("\n" if lines else "")
     return out
 
@@ -71,6 +78,7 @@ def _expand(
     lines: list[str],
     stack: list[Path],
     main: Path,
+    gate: Boundary,
 ) -> None:
     own = text.splitlines()
     out.file_lines[str(path)] = own
@@ -88,13 +96,18 @@ def _expand(
             continue
         name = next(g for g in match.groups() if g)
         column = line.index("#") + 1
+        shown = name if len(name) <= 120 else name[:80] + f"... ({len(name)} characters)"
         target = _locate(name, path, main)
         # The include line itself becomes blank so the parser sees nothing there.
-        if target is None:
+        if len(name) > MAX_PATH_CHARS:
             out.problems.append(IncludeProblem(
-                f"cannot find the included file '{name}' (looked beside {path.name})",
+                f"the included file name '{shown}' is too long to open",
+                str(path), number, column, kind="unreadable"))
+        elif target is None:
+            out.problems.append(IncludeProblem(
+                f"cannot find the included file '{shown}' (looked beside {path.name})",
                 str(path), number, column))
-        elif target.resolve() in stack:
+        elif _real(target) in stack:
             out.problems.append(IncludeProblem(
                 f"'{name}' includes itself (directly or through other files)",
                 str(path), number, column))
@@ -104,26 +117,42 @@ def _expand(
                 str(path), number, column))
         else:
             try:
-                included = target.read_text(encoding="utf-8")
+                included = gate.read_text(target)
+            except Refused as exc:
+                out.problems.append(IncludeProblem(
+                    f"#include '{shown}': the included file {exc.reason}",
+                    str(path), number, column, kind=exc.kind))
             except (OSError, UnicodeDecodeError) as exc:
                 out.problems.append(IncludeProblem(
-                    f"cannot read the included file '{name}': {_reason(exc)}",
+                    f"cannot read the included file '{shown}': {_reason(exc)}",
                     str(path), number, column))
             else:
                 out.includes.append(str(target))
-                _expand(target, included, out, lines, [*stack, target.resolve()], main)
+                _expand(target, included, out, lines, [*stack, _real(target)], main, gate)
                 continue
         lines.append("")
         out.origins.append((str(path), number))
 
 
 def _locate(name: str, including: Path, main: Path) -> Path | None:
-    """The file ``name`` refers to: beside the including file, else beside the main one."""
+    """The file ``name`` refers to: beside the including file, else beside the main one.
+
+    Only names are looked at here (``lexists`` never opens a file and never
+    raises); whether the file may be read is the boundary's decision.
+    """
+    if len(name) > MAX_PATH_CHARS or "\x00" in name:
+        return None
     for base in (including.parent, main.parent):
         candidate = base / name
-        if candidate.is_file():
+        if os.path.lexists(candidate):
             return candidate
     return None
+
+
+def _real(path: Path) -> Path:
+    # Non-strict: a link loop resolves to some path instead of raising; the
+    # boundary refuses it when the file is read.
+    return Path(os.path.realpath(path))
 
 
 def _reason(exc: Exception) -> str:

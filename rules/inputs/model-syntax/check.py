@@ -11,6 +11,8 @@ def check(ctx):
     if prog is None:
         return
     for problem in prog.syntax_errors:
+        if problem.kind != "syntax":
+            continue  # a file the boundary refused: an input problem of its own kind
         path = ctx.project.relpath(problem.path)
         yield ctx.finding(
             f"{path}:{problem.line}:{problem.column}: {problem.message}",
