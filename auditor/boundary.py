@@ -67,7 +67,7 @@ class Refused(Exception):
 
 
 def display(path: str | Path) -> str:
-    """``path`` as printable text: undecodable bytes become ``\\xNN`` escapes.
+    """``path`` (or any text) as printable text: undecodable bytes become ``\\xNN``.
 
     File names may hold bytes that are not UTF-8 (Python keeps them as lone
     surrogates); they cannot be written to a UTF-8 report as they are.
@@ -77,7 +77,11 @@ def display(path: str | Path) -> str:
         text.encode("utf-8")
         return text
     except UnicodeEncodeError:
-        return os.fsencode(text).decode("utf-8", "backslashreplace")
+        pass
+    try:
+        return text.encode("utf-8", "surrogateescape").decode("utf-8", "backslashreplace")
+    except UnicodeEncodeError:  # surrogates that did not come from a file name
+        return text.encode("utf-8", "backslashreplace").decode("utf-8")
 
 
 def available_memory() -> int | None:
@@ -361,7 +365,12 @@ class Boundary:
                 entry = Path(dirpath) / name
                 shown = Path(folder) / entry.relative_to(real)
                 if entry.is_symlink():
-                    self.resolve(entry)  # refuses links that lead out or loop
+                    try:
+                        self.resolve(entry)  # refuses links that lead out or loop
+                    except Refused as exc:
+                        inner = entry.relative_to(real).as_posix()
+                        raise Refused(exc.kind, folder,
+                                      f"holds {display(inner)}, which {exc.reason}") from None
                     target = Path(os.path.realpath(entry))
                     if target.is_dir():
                         raise Refused("special-file", shown,

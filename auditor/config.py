@@ -270,7 +270,12 @@ def find_config_file(root: Path, boundary: Boundary | None = None) -> Path | Non
         try:
             data = _parse(pyproject, boundary)
         except ConfigError:
-            return None
+            # Not ours to judge, unless it names our table: then its error is ours.
+            try:
+                mentions = b"bayes-auditor" in boundary.read_bytes(pyproject)
+            except (Refused, OSError):
+                mentions = False
+            return pyproject if mentions else None
         if _tool_table(data) is not None:
             return pyproject
     return None

@@ -21,7 +21,7 @@ import re
 from collections import defaultdict
 from pathlib import Path
 
-from auditor.boundary import Boundary, Refused
+from auditor.boundary import Boundary, Refused, display
 from auditor.loaders import sniff_cmdstan
 from auditor.model import AnalysisSpec, InputProblem
 from auditor.programs.read import read_program
@@ -154,6 +154,8 @@ def discover(
                     "beside it")],
             ))
     _unique_names(specs)
+    for spec in specs:
+        spec.name = display(spec.name)  # a file name may hold bytes that are not UTF-8
     return specs, problems
 
 

@@ -9,6 +9,8 @@ from dataclasses import dataclass, field
 from enum import StrEnum
 from typing import Any
 
+from auditor.boundary import display as printable
+
 
 class Severity(StrEnum):
     """Severity levels, named as in SARIF 2.1.0 (``error``, ``warning``, ``note``)."""
@@ -94,6 +96,15 @@ class Finding:
     location: Location | None = None
     analysis: str | None = None
     quantity: str | None = None
+
+    def __post_init__(self) -> None:
+        # File names with bytes that are not UTF-8 end up in messages; a report must
+        # still be writable, so such text is made printable once, here.
+        self.message = printable(self.message)
+        self.quantity = None if self.quantity is None else printable(self.quantity)
+        self.analysis = None if self.analysis is None else printable(self.analysis)
+        self.evidence = {k: printable(v) if isinstance(v, str) else v
+                         for k, v in self.evidence.items()}
 
     def sort_key(self) -> tuple:
         """Stable order: stage, severity (worst first), rule, place, quantity, text."""

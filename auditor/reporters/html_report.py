@@ -47,5 +47,5 @@ def write(result: AuditResult, out_dir: Path) -> Path:
     """Write ``audit.html`` into ``out_dir`` and return its path."""
     out_dir.mkdir(parents=True, exist_ok=True)
     path = out_dir / FILENAME
-    path.write_text(render(result), encoding="utf-8", newline="\n")
+    path.write_text(render(result), encoding="utf-8", errors="backslashreplace", newline="\n")
     return path

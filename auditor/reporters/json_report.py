@@ -91,5 +91,5 @@ def write(result: AuditResult, out_dir: Path) -> Path:
     """Write ``audit.json`` into ``out_dir``; same result, same bytes."""
     path = out_dir / FILENAME
     text = json.dumps(to_dict(result), indent=2, ensure_ascii=False, allow_nan=False)
-    path.write_text(text + "\n", encoding="utf-8")
+    path.write_text(text + "\n", encoding="utf-8", errors="backslashreplace")
     return path

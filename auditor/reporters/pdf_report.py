@@ -18,7 +18,6 @@ import json
 import os
 import subprocess
 import sys
-import tempfile
 from dataclasses import dataclass, field
 from pathlib import Path
 from typing import Any
@@ -96,21 +95,20 @@ def render_html_to_pdf(html: str, allowed: frozenset[str] = frozenset()) -> Rend
     """
     if importlib.util.find_spec("weasyprint") is None:
         raise RuntimeError("PDF reports need weasyprint: pip install 'bayes-auditor[report]'")
-    with tempfile.TemporaryDirectory(prefix="bayes-auditor-pdf-") as tmp:
-        job = Path(tmp) / "job.json"
-        out = Path(tmp) / "out.pdf"
-        job.write_text(json.dumps({"html": html, "allowed": sorted(allowed)}), encoding="utf-8")
-        proc = subprocess.run(
-            [sys.executable, "-m", __name__, str(job), str(out)],
-            capture_output=True, text=True, check=False,
-            env={**os.environ, "PYTHONPATH": _import_root()},
-        )
-        if proc.returncode != 0 or not out.is_file():
-            tail = "\n".join(proc.stderr.strip().splitlines()[-5:])
-            raise RuntimeError(f"PDF layout failed (weasyprint): {tail}")
-        meta = json.loads(proc.stdout.strip().splitlines()[-1])
-        return RenderedPdf(data=out.read_bytes(), pages=int(meta["pages"]),
-                           refused=list(meta["refused"]))
+    # The job goes in on stdin and the PDF comes back on stdout: no temporary file,
+    # so the audit writes nothing outside the report folder.
+    job = json.dumps({"html": html, "allowed": sorted(allowed)}).encode("utf-8")
+    proc = subprocess.run(
+        [sys.executable, "-m", __name__],
+        input=job, capture_output=True, check=False,
+        env={**os.environ, "PYTHONPATH": _import_root()},
+    )
+    meta_line, _, data = proc.stdout.partition(b"\n")
+    if proc.returncode != 0 or not data.startswith(b"%PDF"):
+        err = proc.stderr.decode("utf-8", "replace").strip().splitlines()
+        raise RuntimeError(f"PDF layout failed (weasyprint): {chr(10).join(err[-5:])}")
+    meta = json.loads(meta_line)
+    return RenderedPdf(data=data, pages=int(meta["pages"]), refused=list(meta["refused"]))
 
 
 def _import_root() -> str:
@@ -120,13 +118,14 @@ def _import_root() -> str:
     return root + (os.pathsep + extra if extra else "")
 
 
-def _main(argv: list[str]) -> int:
-    """Child process: lay out the job file's HTML, write the PDF, print pages and refusals."""
-    job_path, out_path = Path(argv[0]), Path(argv[1])
-    job = json.loads(job_path.read_text(encoding="utf-8"))
+def _main() -> int:
+    """Child process: lay out the job read from stdin; write one line of pages and
+    refusals, then the PDF's bytes, to stdout."""
+    job = json.loads(sys.stdin.buffer.read().decode("utf-8"))
     rendered = _render_here(job["html"], frozenset(job["allowed"]))
-    out_path.write_bytes(rendered.data)
-    print(json.dumps({"pages": rendered.pages, "refused": rendered.refused}))
+    meta = json.dumps({"pages": rendered.pages, "refused": rendered.refused})
+    sys.stdout.buffer.write(meta.encode("utf-8") + b"\n" + rendered.data)
+    sys.stdout.buffer.flush()
     return 0
 
 
@@ -145,4 +144,4 @@ def write(result: AuditResult, out_dir: Path) -> Path:
 
 
 if __name__ == "__main__":
-    raise SystemExit(_main(sys.argv[1:]))
+    raise SystemExit(_main())
