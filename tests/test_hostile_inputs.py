@@ -475,3 +475,28 @@ def test_zarr_store_with_a_link_leading_out_is_not_opened(tmp_path):
     (hit,) = _findings(report, "inputs.outside-project")
     assert hit["location"]["path"] == "schools.zarr"
     assert "posterior/stolen" in hit["message"] and "OUTSIDE-TEXT" not in json.dumps(report)
+
+
+def test_links_that_stay_inside_are_followed_once(tmp_path):
+    root = tmp_path / "inside"
+    (root / ".store").mkdir(parents=True)
+    shutil.copytree(GOOD_RUN, root / ".store" / "run3")  # hidden: not walked by itself
+    (root / "current").symlink_to(".store/run3")
+    (root / "also").symlink_to("current")
+    code, report = _audit(root, tmp_path)
+    assert code == 0
+    # Reached through two links, audited once, under the first name met.
+    (a,) = report["analyses"]
+    assert a["chains"] == 4 and a["sources"][0] == "also/fit-1.csv"
+
+
+def test_socket_is_reported_never_opened(tmp_path):
+    import socket
+
+    root = _project(tmp_path)
+    with socket.socket(socket.AF_UNIX, socket.SOCK_STREAM) as sock:
+        sock.bind(str(root / "fits" / "fit-9.csv"))
+        code, report = _audit(root, tmp_path)
+    (hit,) = _findings(report, "inputs.special-file")
+    assert hit["location"]["path"] == "fits/fit-9.csv" and "socket" in hit["message"]
+    assert _analysis(report, "fit")["chains"] == 4
