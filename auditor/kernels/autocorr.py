@@ -19,8 +19,9 @@ CONSTANT_RANGE = float(np.finfo(np.float64).resolution)
 def fft_size(length: int, lags: int | None = None) -> int:
     """FFT length that gives exact (non-circular) autocovariances up to ``lags``.
 
-    Circular autocovariance of a zero-padded series of ``length`` values is exact for lags up to
-    ``size - length``; ``lags=None`` asks for all of them (``2 length - 1``, as arviz-stats).
+    The circular autocovariance of a zero-padded series of ``length`` values is exact for lags
+    up to ``size - length``; ``lags=None`` asks for all of them (padding to ``2 length``, as
+    arviz-stats does).
 
     Parameters
     ----------
@@ -37,40 +38,49 @@ def fft_size(length: int, lags: int | None = None) -> int:
     return scipy.fft.next_fast_len(want, real=True)
 
 
-def summed_autocovariance(centered: np.ndarray, size: int) -> np.ndarray:
-    """Autocovariances summed over chains, for lags ``0 .. size - n`` (exact ones only).
+def summed_autocovariance(
+    padded: np.ndarray, n: int, spectrum: np.ndarray | None = None
+) -> np.ndarray:
+    """Autocovariance sums over chains, ``sum_c sum_t x[c, t] x[c, t + k]``, for exact lags.
 
-    The inverse FFT is linear, so summing the chains' power spectra first needs one inverse
-    transform per series instead of one per chain.
+    The FFT runs on a buffer that is already zero-padded (and writes into a reusable
+    ``spectrum``), because letting the FFT pad and allocate costs more than the transform
+    itself here. The inverse FFT is linear, so the chains' power spectra are summed first and
+    one inverse transform per series replaces one per chain.
 
     Parameters
     ----------
-    centered : numpy.ndarray
-        Shape (..., chains, n), each chain centered on its mean; any leading batch shape.
-    size : int
-        FFT length (``>= n``).
+    padded : numpy.ndarray
+        Shape (rows, chains, size): centered chains in ``[..., :n]``, zeros after.
+    n : int
+        Draws per chain.
+    spectrum : numpy.ndarray, optional
+        complex128 buffer of shape (rows, chains, size // 2 + 1).
 
     Returns
     -------
     numpy.ndarray
-        Shape (..., size - n + 1): ``sum_c sum_t x[c, t] x[c, t + k]`` for lag ``k``.
+        Shape (rows, size - n + 1): lags ``0 .. size - n``.
     """
-    n = centered.shape[-1]
-    spectrum = scipy.fft.rfft(centered, n=size, axis=-1, workers=-1)
+    size = padded.shape[-1]
+    spectrum = np.fft.rfft(padded, axis=-1, out=spectrum)
     # |F|^2 in place on the float view (re^2, im^2), then one reduction over chains and re/im.
     flat = spectrum.view(np.float64)
     np.multiply(flat, flat, out=flat)
     power = flat.sum(axis=-2)
     power = power.reshape(power.shape[:-1] + (power.shape[-1] // 2, 2)).sum(axis=-1)
-    del spectrum, flat
     acov = scipy.fft.irfft(power, n=size, axis=-1, workers=-1)
-    return acov[..., : size - n + 1]
+    return acov[:, : size - n + 1]
 
 
 def geyer_ess(
     acov_sum: np.ndarray, chain_means: np.ndarray, n: int
 ) -> tuple[np.ndarray, np.ndarray]:
     """ESS from chain-summed autocovariances by Geyer's initial monotone sequence.
+
+    Reproduces arviz-stats' loop in closed form: pair sums ``P_k = rho_2k + rho_2k+1`` (with
+    ``rho_0 = 1``), truncation at the first non-positive pair ``K``, running minimum of the
+    pairs before it, plus the even term of pair ``K`` when it is positive.
 
     Parameters
     ----------
@@ -85,7 +95,7 @@ def geyer_ess(
     -------
     ess, settled : tuple of numpy.ndarray
         ``ess`` (rows,) is capped at ``S log10 S`` (``S = chains * n``); ``settled`` is False
-        where the truncation lag lies beyond the lags supplied, so the row must be redone with
+        where the truncation lies beyond the lags supplied, so the row must be redone with
         more lags (its ``ess`` is then meaningless).
     """
     rows, n_lags = acov_sum.shape
@@ -101,31 +111,29 @@ def geyer_ess(
 
     # Pairs k = 1.. that arviz-stats' loop may reach: it runs while 2k - 1 < n - 3.
     k_max = max((n - 3) // 2, 0)
-    k_have = min(k_max, (n_lags - 2) // 2)  # pairs whose both lags are exact here
+    k_have = min(k_max, (n_lags - 2) // 2)  # pairs whose two lags are both exact here
     rho1 = rho[:, 1] if n_lags > 1 else np.full(rows, np.nan)
-    pair0 = 1.0 + rho1  # rho_0 is 1 by definition, not estimated
     pairs = np.empty((rows, k_have + 1))
-    pairs[:, 0] = pair0
+    pairs[:, 0] = 1.0 + rho1  # rho_0 is 1 by definition, not estimated
     evens = np.ones((rows, k_have + 1))
     if k_have:
         evens[:, 1:] = rho[:, 2 : 2 * k_have + 1 : 2]
         pairs[:, 1:] = evens[:, 1:] + rho[:, 3 : 2 * k_have + 2 : 2]
-    # Truncation K: the first pair (after pair 0) whose sum is not positive, else k_max.
-    stop = ~(pairs > 0)  # NaN stops too, as in the reference loop
+    # Truncation K: the first pair after pair 0 whose sum is not positive (NaN stops too).
+    stop = ~(pairs > 0)
     stop[:, 0] = False
-    first = np.where(stop.any(axis=1), stop.argmax(axis=1), k_max)
-    trunc = np.where(~(pair0 > 0), 0, first)
+    trunc = np.where(stop.any(axis=1), stop.argmax(axis=1), k_max)
+    trunc[~(pairs[:, 0] > 0)] = 0
     settled = trunc <= k_have
-    safe = np.minimum(trunc, k_have)
-    # Initial monotone sequence: each pair sum no larger than the previous one.
+    trunc = np.minimum(trunc, k_have)
+    # Initial monotone sequence: each pair sum no larger than the one before.
     monotone = np.minimum.accumulate(pairs, axis=1)
-    used = np.arange(k_have + 1)[None, :] < safe[:, None]
-    with np.errstate(invalid="ignore"):
-        head = np.where(used, monotone, 0.0).sum(axis=1)
-    even_k = np.take_along_axis(evens, safe[:, None], axis=1)[:, 0]
-    pair_k = np.take_along_axis(pairs, safe[:, None], axis=1)[:, 0]
-    # The even term of the truncating pair is kept when positive (or when its pair sum is 0).
-    tail = np.where(safe == 0, 1.0, np.where((even_k > 0) | (pair_k >= 0), even_k, 0.0))
+    used = np.arange(k_have + 1)[None, :] < trunc[:, None]
+    head = np.where(used, monotone, 0.0).sum(axis=1)
+    even_k = evens[np.arange(rows), trunc]
+    pair_k = pairs[np.arange(rows), trunc]
+    # Pair K's even term stays when positive (or when the pair sum is exactly 0, kept then).
+    tail = np.where(trunc == 0, 1.0, np.where((even_k > 0) | (pair_k >= 0), even_k, 0.0))
     tau = -1.0 + 2.0 * head + tail
     floor = 1.0 / np.log10(total)
     tau = np.where(tau > floor, tau, np.where(np.isnan(tau), np.nan, floor))
@@ -135,40 +143,48 @@ def geyer_ess(
 
 
 def batched_ess(
-    centered: np.ndarray,
+    padded: np.ndarray,
+    n: int,
     chain_means: np.ndarray,
     constant: np.ndarray,
-    *,
-    lags: int | None = None,
+    spectrum: np.ndarray | None = None,
 ) -> np.ndarray:
-    """ESS of every series of a batch: one batched FFT, then the rows needing more lags again.
+    """ESS of every series of a batch: one FFT pass, then the rows that need more lags.
+
+    Padding only to ``size`` (the buffer's last axis) gives the lags up to ``size - n``, which
+    settle well-mixing series; series whose Geyer truncation lies further out are redone with
+    full padding, so the result never depends on ``size``.
 
     Parameters
     ----------
-    centered : numpy.ndarray
-        Shape (series, chains, n): chains centered on their means.
+    padded : numpy.ndarray
+        Shape (series, chains, size): chains centered on their means in ``[..., :n]``, zeros
+        after.
+    n : int
+        Draws per chain.
     chain_means : numpy.ndarray
         Shape (series, chains).
     constant : numpy.ndarray
         Boolean (series,): series whose range is below :data:`CONSTANT_RANGE`; they get
-        ``chains * n`` (uncapped, as arviz-stats returns the sample size for them).
-    lags : int, optional
-        Lags computed in the first pass; ``None`` computes all. Rows whose Geyer truncation
-        lies further out are recomputed with every lag, so the result does not depend on it.
+        ``chains * n`` (uncapped: arviz-stats returns the sample size for them).
+    spectrum : numpy.ndarray, optional
+        Reusable complex128 buffer of shape (series, chains, size // 2 + 1).
 
     Returns
     -------
     numpy.ndarray
         Shape (series,).
     """
-    n_series, n_chains, n = centered.shape
-    size = fft_size(n, lags)
-    ess, settled = geyer_ess(summed_autocovariance(centered, size), chain_means, n)
+    n_series, n_chains, size = padded.shape
+    ess, settled = geyer_ess(summed_autocovariance(padded, n, spectrum), chain_means, n)
     redo = np.flatnonzero(~settled & ~constant)
-    if redo.size:
-        full = fft_size(n)
-        ess[redo], _ = geyer_ess(
-            summed_autocovariance(centered[redo], full), chain_means[redo], n
-        )
+    full = fft_size(n)
+    # In slices no larger than the first pass, so memory stays within its bound.
+    step = max(1, (n_series * size) // full)
+    for start in range(0, redo.size, step):
+        rows = redo[start : start + step]
+        wide = np.zeros((rows.size, n_chains, full))
+        wide[:, :, :n] = padded[rows, :, :n]
+        ess[rows], _ = geyer_ess(summed_autocovariance(wide, n), chain_means[rows], n)
     ess[constant] = n_chains * n
     return ess

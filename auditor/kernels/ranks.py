@@ -8,10 +8,19 @@ the standard normal quantile. Rows are quantities; every function works on a who
 
 from __future__ import annotations
 
+from collections.abc import Callable
 from functools import lru_cache
 
 import numpy as np
 from scipy import special
+
+#: Buffer provider ``alloc(name, shape, dtype)``: lets a caller reuse memory across blocks.
+Alloc = Callable[[str, tuple[int, ...], type], np.ndarray]
+
+
+def fresh(name: str, shape: tuple[int, ...], dtype: type = np.float64) -> np.ndarray:
+    """Default :data:`Alloc`: a new uninitialized array (the name is ignored)."""
+    return np.empty(shape, dtype)
 
 #: Blom's fractional offset (Blom 1958), as in the R package ``posterior`` and arviz-stats.
 BLOM_OFFSET = 3 / 8
@@ -42,8 +51,11 @@ def normal_scores(size: int) -> np.ndarray:
     return table
 
 
-def tie_index(sorted_rows: np.ndarray) -> np.ndarray | None:
-    """Index ``j = a + b`` of each sorted position's tie run, or ``None`` when no row has ties.
+def tie_runs(sorted_rows: np.ndarray) -> tuple[np.ndarray, np.ndarray, np.ndarray] | None:
+    """Tied sorted positions and the index ``j = a + b`` of the tie run each belongs to.
+
+    Sparse on purpose: continuous draws have few ties (the folded draws nearly always one, the
+    two middle values), so only tied positions are visited; integer draws just give more.
 
     Parameters
     ----------
@@ -52,70 +64,89 @@ def tie_index(sorted_rows: np.ndarray) -> np.ndarray | None:
 
     Returns
     -------
-    numpy.ndarray or None
-        int64 array of the input's shape; ``2 i`` wherever position ``i`` has no tie.
+    (rows, positions, j) or None
+        int64 arrays, one entry per tied sorted position; ``None`` when nothing is tied.
     """
     rows, size = sorted_rows.shape
-    same = sorted_rows[:, 1:] == sorted_rows[:, :-1]
-    tied_rows = np.flatnonzero(same.any(axis=1))
-    if tied_rows.size == 0:
+    count = rows * (size - 1)
+    # Equality flags in a zero-padded byte buffer read as 64-bit words: scanning the words for
+    # non-zero ones is eight times shorter than scanning the flags (measured 9x faster).
+    flags = np.zeros(-(-count // 8) * 8, dtype=bool)
+    np.equal(sorted_rows[:, 1:], sorted_rows[:, :-1], out=flags[:count].reshape(rows, size - 1))
+    words = np.flatnonzero(flags.view(np.uint64))
+    if words.size == 0:
         return None
-    index = np.broadcast_to(2 * np.arange(size, dtype=np.int64), (rows, size)).copy()
-    same = same[tied_rows]
-    positions = np.arange(size, dtype=np.int64)
-    # First position of each run: the running maximum of the positions that start a run.
-    starts = np.empty(same.shape[:1] + (size,), dtype=np.int64)
-    starts[:, 0] = 0
-    starts[:, 1:] = np.where(same, 0, positions[1:])
-    np.maximum.accumulate(starts, axis=1, out=starts)
-    # Last position of each run: the running minimum, from the right, of positions ending one.
-    ends = np.empty_like(starts)
-    ends[:, -1] = size - 1
-    ends[:, :-1] = np.where(same, size - 1, positions[:-1])
-    ends = np.minimum.accumulate(ends[:, ::-1], axis=1)[:, ::-1]
-    index[tied_rows] = starts + ends
-    return index
+    candidates = (words[:, None] * 8 + np.arange(8)).reshape(-1)
+    tied = candidates[flags[candidates]]
+    row, pos = tied // (size - 1), tied % (size - 1)
+    # A link joins flat positions f and f + 1; consecutive links form one run of ties.
+    link = row * size + pos
+    opens = np.ones(link.size, dtype=bool)
+    opens[1:] = link[1:] != link[:-1] + 1
+    closes = np.ones(link.size, dtype=bool)
+    closes[:-1] = opens[1:]
+    first, last = link[opens], link[closes] + 1
+    lengths = last - first + 1
+    starts_at = np.repeat(np.cumsum(lengths) - lengths, lengths)
+    flat = np.repeat(first, lengths) + (np.arange(lengths.sum()) - starts_at)
+    j = np.repeat(first % size + last % size, lengths)
+    return flat // size, flat % size, j
 
 
-def scores_in_sorted_order(sorted_rows: np.ndarray) -> np.ndarray:
-    """Rank-normalized (normal) score of each sorted position, ties given their average rank.
+def argsort_rows(values: np.ndarray, out: np.ndarray, kind: str | None = None) -> np.ndarray:
+    """Argsort each row into ``out`` (int64); a row at a time so no block-sized array is new."""
+    for r in range(values.shape[0]):
+        out[r] = np.argsort(values[r], kind=kind)
+    return out
 
-    Parameters
-    ----------
-    sorted_rows : numpy.ndarray
-        Shape (rows, size), each row sorted ascending, no NaN.
 
-    Returns
-    -------
-    numpy.ndarray
-        Shape (rows, size); a read-only broadcast view when no row has ties.
+def gather_rows(
+    source: np.ndarray, index: np.ndarray, out: np.ndarray | None = None
+) -> np.ndarray:
+    """``source[r, index[r, i]]`` for every row: one 1-d take per row.
+
+    A row at a time keeps source and result in cache; measured faster here than
+    ``numpy.take_along_axis`` or one flat fancy index over the whole block.
     """
-    rows, size = sorted_rows.shape
-    table = normal_scores(size)
-    index = tie_index(sorted_rows)
-    if index is None:
-        return np.broadcast_to(table[::2], (rows, size))
-    return table[index]
+    if out is None:
+        out = np.empty(index.shape, dtype=source.dtype)
+    for r in range(index.shape[0]):
+        np.take(source[r], index[r], out=out[r])
+    return out
 
 
 def scatter_rows(out: np.ndarray, positions: np.ndarray, values: np.ndarray) -> None:
-    """``out[r, positions[r, i]] = values[r, i]`` for every row ``r`` (one flat scatter).
+    """``out[r, positions[r, i]] = values[r, i]`` (or ``values[i]`` for a 1-d ``values``)."""
+    for r in range(positions.shape[0]):
+        out[r, positions[r]] = values if values.ndim == 1 else values[r]
+
+
+def write_scores(out: np.ndarray, sorted_rows: np.ndarray, positions: np.ndarray) -> None:
+    """Write each draw's rank-normalized score at its place: ``out[r, positions[r, i]]``.
+
+    Without ties the score of sorted position ``i`` is the table entry ``2 i`` for every row,
+    so one shared row is scattered and only tied positions are patched with average ranks.
 
     Parameters
     ----------
     out : numpy.ndarray
-        C-contiguous, shape (rows, size), written in place.
+        Shape (rows, size), written in place.
+    sorted_rows : numpy.ndarray
+        Shape (rows, size), each row sorted ascending, no NaN.
     positions : numpy.ndarray
-        Integer array (rows, size), each row a permutation of ``range(size)``.
-    values : numpy.ndarray
-        Array broadcastable to (rows, size).
+        ``positions[r, i]``: column of ``out`` that holds the draw ``sorted_rows[r, i]``.
     """
-    rows, size = positions.shape
-    flat = positions + (np.arange(rows, dtype=positions.dtype) * size)[:, None]
-    out.reshape(-1)[flat.reshape(-1)] = np.broadcast_to(values, (rows, size)).reshape(-1)
+    table = normal_scores(sorted_rows.shape[1])
+    scatter_rows(out, positions, table[::2])
+    ties = tie_runs(sorted_rows)
+    if ties is not None:
+        row, pos, j = ties
+        out[row, positions[row, pos]] = table[j]
 
 
-def folded_order(sorted_rows: np.ndarray, order: np.ndarray) -> tuple[np.ndarray, np.ndarray]:
+def folded_order(
+    sorted_rows: np.ndarray, order: np.ndarray, alloc: Alloc = fresh
+) -> tuple[np.ndarray, np.ndarray]:
     """Order of the folded draws ``|x - median(x)|`` derived from the order of the draws.
 
     Below the median the folded values decrease along the sorted draws, above it they increase,
@@ -129,6 +160,9 @@ def folded_order(sorted_rows: np.ndarray, order: np.ndarray) -> tuple[np.ndarray
     order : numpy.ndarray
         Shape (rows, size): ``order[r, i]`` is the position of ``sorted_rows[r, i]`` in the rows
         of the draws.
+    alloc : Alloc, optional
+        Buffer provider (names ``fold_runs``, ``fold_merge``, ``fold_values``,
+        ``fold_sources``, ``fold_positions``).
 
     Returns
     -------
@@ -136,21 +170,20 @@ def folded_order(sorted_rows: np.ndarray, order: np.ndarray) -> tuple[np.ndarray
         ``positions[r, k]`` is where the k-th smallest folded value of row ``r`` sits among the
         draws, ``folded[r, k]`` that value (sorted ascending; NaN when the median is infinite).
     """
-    half = sorted_rows.shape[1] // 2
+    shape = sorted_rows.shape
+    half = shape[1] // 2
     # np.median of an even count is the mean of the two middle values, i.e. (a + b) / 2.
     median = (sorted_rows[:, half - 1] + sorted_rows[:, half]) / 2
-    runs = np.empty_like(sorted_rows)
-    np.subtract(sorted_rows[:, half - 1 :: -1] if half else sorted_rows[:, :0],
-                median[:, None], out=runs[:, :half])
+    runs = alloc("fold_runs", shape, np.float64)
+    np.subtract(sorted_rows[:, :half][:, ::-1], median[:, None], out=runs[:, :half])
     np.subtract(sorted_rows[:, half:], median[:, None], out=runs[:, half:])
     np.abs(runs, out=runs)
-    merge = np.argsort(runs, axis=1, kind="stable")
-    folded = np.take_along_axis(runs, merge, axis=1)
-    del runs
-    sources = np.empty_like(order)
-    sources[:, :half] = order[:, half - 1 :: -1] if half else order[:, :0]
+    merge = argsort_rows(runs, alloc("fold_merge", shape, np.int64), kind="stable")
+    folded = gather_rows(runs, merge, alloc("fold_values", shape, np.float64))
+    sources = alloc("fold_sources", shape, np.int64)
+    sources[:, :half] = order[:, :half][:, ::-1]
     sources[:, half:] = order[:, half:]
-    return np.take_along_axis(sources, merge, axis=1), folded
+    return gather_rows(sources, merge, alloc("fold_positions", shape, np.int64)), folded
 
 
 def linear_quantiles(sorted_rows: np.ndarray, probs: tuple[float, ...]) -> np.ndarray:
