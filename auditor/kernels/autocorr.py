@@ -64,11 +64,12 @@ def summed_autocovariance(
     """
     size = padded.shape[-1]
     spectrum = np.fft.rfft(padded, axis=-1, out=spectrum)
-    # |F|^2 in place on the float view (re^2, im^2), then one reduction over chains and re/im.
+    # |F|^2 in place on the float view (re^2, im^2), summed over chains, then re^2 + im^2 by
+    # two strided slices (a reduction over a length-2 axis is several times slower).
     flat = spectrum.view(np.float64)
     np.multiply(flat, flat, out=flat)
-    power = flat.sum(axis=-2)
-    power = power.reshape(power.shape[:-1] + (power.shape[-1] // 2, 2)).sum(axis=-1)
+    both = flat.sum(axis=-2)
+    power = both[:, 0::2] + both[:, 1::2]
     acov = scipy.fft.irfft(power, n=size, axis=-1, workers=-1)
     return acov[:, : size - n + 1]
 

@@ -40,13 +40,7 @@ import numpy as np
 from scipy import stats
 
 from auditor.kernels.autocorr import CONSTANT_RANGE, batched_ess, fft_size
-from auditor.kernels.ranks import (
-    argsort_rows,
-    folded_order,
-    gather_rows,
-    linear_quantiles,
-    write_scores,
-)
+from auditor.kernels.ranks import folded_order, linear_quantiles, sort_rows, write_scores
 
 #: Quantile probabilities of ``summarize`` by default (the reference table's 0.01, 0.1, 0.3).
 DEFAULT_QUANTILES: tuple[float, ...] = (0.01, 0.1, 0.3)
@@ -271,10 +265,11 @@ def diagnose_block(
     _transpose_into(y, x)
     flat = y.reshape(n_q, size)
 
-    # The one sort: pooled order of each quantity's draws (NaN sorts last).
-    order = argsort_rows(flat, ws("order", (n_q, size), np.int64))
-    ordered = gather_rows(flat, order, ws("sorted", (n_q, size)))
-    invalid = np.isnan(ordered[:, -1])
+    # The one sort: pooled order of each quantity's draws (NaN sorts to an end).
+    order = ws("order", (n_q, size), np.int64)
+    ordered = ws("sorted", (n_q, size))
+    sort_rows(flat, order, ordered, ws("keys", (n_q, size), np.int64))
+    invalid = np.isnan(ordered[:, 0]) | np.isnan(ordered[:, -1])
     if invalid.any():
         # Any NaN makes every measure NaN (arviz-stats); zeros keep the arithmetic quiet.
         y[invalid] = 0.0
