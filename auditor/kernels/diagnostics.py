@@ -252,12 +252,20 @@ def diagnose_block(
     x = np.asarray(block)
     if x.ndim != 3:
         raise ValueError(f"expected draws of shape (chains, draws, quantities), got {x.shape}")
-    n_chains, n_draws, n_q = x.shape
-    out = {name: np.full(n_q, np.nan) for name in plan.names}
-    if n_q == 0 or n_chains == 0 or n_draws < MIN_DRAWS:
+    out = {name: np.full(x.shape[2], np.nan) for name in plan.names}
+    if x.size == 0 or x.shape[1] < MIN_DRAWS:
         return out
-    ws = Workspace() if workspace is None else workspace
+    # Non-finite draws are a handled case: their NaN/inf arithmetic mirrors arviz-stats.
+    with np.errstate(divide="ignore", invalid="ignore", over="ignore"):
+        _diagnose(x, plan, lags, Workspace() if workspace is None else workspace, out)
+    return out
 
+
+def _diagnose(
+    x: np.ndarray, plan: _Plan, lags: int | None, ws: Workspace, out: dict[str, np.ndarray]
+) -> None:
+    """Body of :func:`diagnose_block`: fills ``out`` (pre-filled with NaN) in place."""
+    n_chains, n_draws, n_q = x.shape
     half = n_draws // 2
     size, split_size = n_chains * n_draws, 2 * n_chains * half
     # Quantity-major float64 copy: every later pass reads contiguous chains.
@@ -428,7 +436,6 @@ def diagnose_block(
         if name in results:
             out[name][:] = results[name]
             out[name][invalid] = np.nan
-    return out
 
 
 def _mcse_quantile(ordered: np.ndarray, ess: np.ndarray, prob: float) -> np.ndarray:
@@ -439,8 +446,9 @@ def _mcse_quantile(ordered: np.ndarray, ess: np.ndarray, prob: float) -> np.ndar
     """
     size = ordered.shape[1]
     with np.errstate(invalid="ignore"):
-        ends = stats.beta.ppf(MCSE_INTERVAL, (ess * prob + 1)[:, None],
-                              (ess * (1 - prob) + 1)[:, None])
+        ends = stats.beta.ppf(
+            MCSE_INTERVAL, (ess * prob + 1)[:, None], (ess * (1 - prob) + 1)[:, None]
+        )
     ends = ends * size - 1
     # np.nanmax((v, 0)) and np.nanmin((v, size - 1)) of the reference: NaN falls to the bound.
     low = np.floor(np.where(np.isnan(ends[:, 0]), 0, np.maximum(ends[:, 0], 0))).astype(np.intp)

@@ -22,6 +22,7 @@ def fresh(name: str, shape: tuple[int, ...], dtype: type = np.float64) -> np.nda
     """Default :data:`Alloc`: a new uninitialized array (the name is ignored)."""
     return np.empty(shape, dtype)
 
+
 #: Blom's fractional offset (Blom 1958), as in the R package ``posterior`` and arviz-stats.
 BLOM_OFFSET = 3 / 8
 
@@ -93,9 +94,7 @@ def tie_runs(sorted_rows: np.ndarray) -> tuple[np.ndarray, np.ndarray, np.ndarra
     return flat // size, flat % size, j
 
 
-def sort_rows(
-    values: np.ndarray, order: np.ndarray, ordered: np.ndarray, keys: np.ndarray
-) -> None:
+def sort_rows(values: np.ndarray, order: np.ndarray, ordered: np.ndarray, keys: np.ndarray) -> None:
     """Argsort each row into ``order`` and the sorted values into ``ordered``.
 
     Sorting 64-bit integer keys that carry the column index in their low bits (the float's
@@ -137,9 +136,7 @@ def argsort_rows(values: np.ndarray, out: np.ndarray, kind: str | None = None) -
     return out
 
 
-def gather_rows(
-    source: np.ndarray, index: np.ndarray, out: np.ndarray | None = None
-) -> np.ndarray:
+def gather_rows(source: np.ndarray, index: np.ndarray, out: np.ndarray | None = None) -> np.ndarray:
     """``source[r, index[r, i]]`` for every row: one 1-d take per row.
 
     A row at a time keeps source and result in cache; measured faster here than
