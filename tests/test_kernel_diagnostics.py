@@ -148,6 +148,15 @@ def assert_same(ours: dict[str, np.ndarray], theirs: dict[str, np.ndarray], rtol
                                    err_msg=name)  # fmt: skip
 
 
+def _few_ties(rng: np.random.Generator) -> np.ndarray:
+    """Continuous draws with a few runs of equal values (the sparse tie path)."""
+    x = rng.normal(size=(4, 80, 4))
+    x[0, :5, 0] = x[1, 7, 0]  # a run of six equal draws
+    x[2, 10:12, 1] = x[3, 3, 1]  # and of three
+    x[:, 0, 2] = 0.0  # one run per chain
+    return x
+
+
 def _cases() -> dict[str, np.ndarray]:
     rng = np.random.default_rng(2024)
     cases = {
@@ -157,6 +166,7 @@ def _cases() -> dict[str, np.ndarray]:
         "offset 1e6 scale 1e-3": 1e6 + 1e-3 * rng.normal(size=(4, 50, 4)),
         "ties (integers)": rng.integers(0, 4, size=(4, 50, 8)).astype(float),
         "ties (rounded)": np.round(rng.normal(size=(2, 60, 5)), 1),
+        "few ties": _few_ties(rng),
         "one chain": rng.normal(size=(1, 50, 5)),
         "2 draws per chain": rng.normal(size=(4, 2, 5)),
         "4 draws per chain": rng.normal(size=(4, 4, 5)),
@@ -186,6 +196,7 @@ def _cases() -> dict[str, np.ndarray]:
     bad[2, 5, 5], bad[3, 7, 5] = -np.inf, np.inf  # both signs
     bad[:, :, 6] = np.inf  # all infinite
     bad[0, 1, 7], bad[2, 2, 7] = np.nan, np.inf
+    bad[3, 4, 8] = -np.nan  # sign bit set: the keyed sort puts it first, not last
     cases["NaN and infinite draws"] = bad
     return cases
 
@@ -203,8 +214,8 @@ def test_matches_arviz_stats(case):
 def test_undefined_cases_are_nan_as_in_arviz_stats():
     # Source: arviz-stats (oracle): which results are undefined, spelled out.
     ours = summarize(CASES["NaN and infinite draws"])
-    assert np.isnan(ours["ess_bulk"][[0, 1, 7]]).all()  # any NaN draw: every measure NaN
-    assert np.isnan(ours["rhat_rank"][[0, 1, 7]]).all()
+    assert np.isnan(ours["ess_bulk"][[0, 1, 7, 8]]).all()  # any NaN draw: every measure NaN
+    assert np.isnan(ours["rhat_rank"][[0, 1, 7, 8]]).all()
     assert np.isfinite(ours["ess_bulk"][[2, 3, 4, 5, 6]]).all()  # ranks of infinite draws exist
     assert all(np.isnan(v).all() for v in summarize(CASES["2 draws per chain"]).values())
     one_chain = summarize(CASES["one chain"])

@@ -19,7 +19,7 @@ package ``posterior`` after 1.6.0 and in arviz-stats):
 
 Design: the draws come as (chains, draws, quantities) and are processed in blocks of
 quantities whose working memory fits a budget. Within a block everything is vectorized over
-quantities: one argsort gives the bulk ranks, the folded order (a linear merge of two runs) and
+quantities: one sort gives the bulk ranks, the folded order (a linear merge of two runs) and
 the quantiles; the autocovariances of all series of the block come from one batched real FFT
 whose chain spectra are summed before a single inverse FFT. :func:`diagnose_block` works on one
 block by itself, so a caller may feed blocks from a lazily loaded array (or map it over Dask
@@ -198,14 +198,14 @@ def bytes_per_quantity(
 ) -> int:
     """Working memory one quantity needs in :func:`diagnose_block` (a generous estimate).
 
-    In arrays of ``chains * draws`` values (8 bytes): the block copy, its order and sorted
-    values, the scores and five folded-order buffers (9; 13 for an odd draw count); per series
-    the padded series, its spectrum and at most as much again for series redone with full
-    padding (3 each, times the padding ratio); the same for the unsplit series of ``ess_raw``.
+    In arrays of ``chains * draws`` values (8 bytes): the block copy, its sort keys, order and
+    sorted values, the scores and five folded-order buffers (10; 14 for an odd draw count); per
+    series the padded series, its spectrum and at most as much again for series redone with
+    full padding (3 each, times the padding ratio); the same for the unsplit ``ess_raw`` series.
     """
     half = max(draws // 2, 1)
     split_ratio = fft_size(half, _first_lags(half, lags)) / half
-    units = 9 + (4 if draws % 2 else 0) + 3 * n_series * split_ratio
+    units = 10 + (4 if draws % 2 else 0) + 3 * n_series * split_ratio
     if raw_ess:
         units += 3 * fft_size(max(draws, 1), _first_lags(draws, lags)) / max(draws, 1)
     return int(units * chains * max(draws, 1) * 8)
