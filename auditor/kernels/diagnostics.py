@@ -27,7 +27,9 @@ chunks along the quantity axis).
 
 Undefined cases follow arviz-stats: fewer than 4 draws per chain or any NaN in a quantity gives
 NaN for all its measures; one chain gives NaN R-hats; a constant series gives its sample size as
-ESS and a NaN R-hat; infinite draws propagate as the same arithmetic does there.
+ESS and a NaN R-hat; infinite draws propagate as the same arithmetic does there. Results agree
+with arviz-stats to rounding, except where a Geyer pair sum is zero in exact arithmetic (seen
+only for tiny discrete chains): rounding then decides the truncation, differently in each.
 """
 
 from __future__ import annotations
@@ -154,7 +156,8 @@ class Workspace:
 
     Fresh memory costs a page fault per 4 KiB on first touch and the allocator hands freed
     blocks back to the system between blocks; reusing buffers made a block about a fifth
-    faster here. Buffers only grow, so a workspace holds one block's working set.
+    faster here. Buffers only grow, so a workspace holds one block's working set. Not
+    thread-safe: give each thread its own.
     """
 
     def __init__(self) -> None:
