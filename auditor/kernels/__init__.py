@@ -1,0 +1,1 @@
+"""Vectorized numerical kernels (numpy/scipy only) used by the audit's diagnostics."""
