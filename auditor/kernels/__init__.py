@@ -1,0 +1,1 @@
+"""Numerical kernels (numpy/scipy only) that import nothing else of the project."""
