@@ -307,12 +307,14 @@ def _fields(res: psis.LooResult) -> list[np.ndarray]:
 
 
 @pytest.mark.parametrize("r_eff", [0.8, "log_lik"])
-def test_results_do_not_depend_on_chunk_size_or_source(r_eff, tmp_path):
+def test_results_do_not_depend_on_chunk_size_threads_or_source(r_eff, tmp_path):
     ll, _ = _regression(13, 4, 150, 60, outliers=5, phi=0.7)
-    base = psis.psis_loo(ll, r_eff=r_eff, chunk_bytes=1)  # one observation per chunk
+    # one observation per chunk, one thread
+    base = psis.psis_loo(ll, r_eff=r_eff, chunk_bytes=1, workers=1)
     path = tmp_path / "ll.npy"
     np.save(path, ll)
-    others = [psis.psis_loo(ll, r_eff=r_eff, chunk_bytes=b) for b in (50_000, 400_000, 2**30)]
+    others = [psis.psis_loo(ll, r_eff=r_eff, chunk_bytes=b, workers=w)
+              for b in (50_000, 400_000, 2**30) for w in (1, 3)]
     others.append(psis.psis_loo(np.load(path, mmap_mode="r"), r_eff=r_eff, chunk_bytes=300_000))
     others.append(psis.psis_loo(_SliceOnly(ll), r_eff=r_eff, chunk_bytes=300_000))
     for other in others:
@@ -324,7 +326,7 @@ def test_results_do_not_depend_on_chunk_size_or_source(r_eff, tmp_path):
                 # Tail lengths vary by observation; rows of a chunk are padded to its longest
                 # tail, which changes only the order of float64 summation.
                 np.testing.assert_allclose(a, b, rtol=1e-12, atol=1e-12)
-    waics = [psis.waic(ll, chunk_bytes=b) for b in (1, 100_000, 2**30)]
+    waics = [psis.waic(ll, chunk_bytes=b, workers=w) for b in (1, 100_000, 2**30) for w in (1, 2)]
     for w in waics[1:]:
         np.testing.assert_array_equal(w.elpd_waic_i, waics[0].elpd_waic_i)
 

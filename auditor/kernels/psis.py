@@ -28,7 +28,10 @@ arviz-stats'; :func:`posterior_r_eff` reproduces arviz-stats' default ``r_eff``.
 from __future__ import annotations
 
 import math
-from collections.abc import Iterable, Iterator, Mapping
+import os
+from collections import deque
+from collections.abc import Callable, Iterable, Iterator, Mapping
+from concurrent.futures import Future, ThreadPoolExecutor
 from dataclasses import dataclass
 from typing import Any, Literal, Protocol
 
@@ -69,6 +72,9 @@ _PRIOR_K_MEAN = 0.5
 _PRIOR_B_SCALE = 3
 # Fewer tail draws than this: no smoothing, k-hat = inf (the loo package's convention).
 _MIN_TAIL = 5
+
+# Threads by default: the usable CPUs, but no more than this (chunks get small beyond it).
+_MAX_DEFAULT_WORKERS = 8
 
 TailRounding = Literal["ceil", "floor"]
 REff = float | ArrayLike | Literal["log_lik"]
@@ -345,8 +351,6 @@ def _read(src: Any, sl: slice, work: np.dtype) -> NDArray[Any]:
 
 
 def _obs_per_chunk(per_obs: int, chunk_bytes: int, n_obs: int) -> int:
-    if chunk_bytes <= 0:
-        raise ValueError("chunk_bytes must be positive")
     return int(max(1, min(n_obs, chunk_bytes // max(per_obs, 1))))
 
 
@@ -527,39 +531,46 @@ def _select_top(lr: NDArray[Any], m_max: int, with_index: bool
             np.take_along_axis(part, order, axis=1))
 
 
-def _exp_sums(lr: NDArray[Any], upto: int, max_lr: NDArray[np.float64],
-              min_lr: NDArray[np.float64] | None) -> tuple[NDArray, NDArray | None]:
-    """Per row: ``sum(exp(lr[:, :upto] - max_lr))`` and, with ``min_lr``, ``sum(exp(min_lr -
-    lr))`` over the whole row. In float64 and row blocks, so the block read for the first sum is
-    still in cache for the second and temporaries stay small."""
+def _exp_sums(lr: NDArray[Any], upto: int, max_lr: NDArray[np.float64], want_full: bool
+              ) -> tuple[NDArray, NDArray | None, NDArray | None]:
+    """Per row: ``sum(exp(lr[:, :upto] - max_lr))`` and, if ``want_full``, the row minimum
+    ``min_lr`` and ``sum(exp(min_lr - lr))`` over the whole row.
+
+    In float64 and in row blocks of about 1 MB: the block read for the first sum is still in
+    cache for the minimum and the second sum, and temporaries stay small.
+    """
     n, s = lr.shape
     rb = max(1, _BLOCK_BYTES // (8 * s))
     buf = np.empty((min(rb, n), s))
     body = np.empty(n)
-    full = np.empty(n) if min_lr is not None else None
+    full = np.empty(n) if want_full else None
+    min_lr = np.empty(n) if want_full else None
     with np.errstate(under="ignore", over="ignore"):
         for r0 in range(0, n, rb):
             r1 = min(n, r0 + rb)
             b = buf[: r1 - r0]
+            blk = lr[r0:r1]
             if upto > 0:
-                np.subtract(lr[r0:r1, :upto], max_lr[r0:r1, None], out=b[:, :upto])
+                np.subtract(blk[:, :upto], max_lr[r0:r1, None], out=b[:, :upto])
                 np.exp(b[:, :upto], out=b[:, :upto])
                 body[r0:r1] = b[:, :upto].sum(axis=1)
             else:
                 body[r0:r1] = 0.0
             if full is not None and min_lr is not None:
-                np.subtract(min_lr[r0:r1, None], lr[r0:r1], out=b)
+                mn = blk.min(axis=1).astype(np.float64)
+                min_lr[r0:r1] = mn
+                np.subtract(mn[:, None], blk, out=b)
                 np.exp(b, out=b)
                 full[r0:r1] = b.sum(axis=1)
-    return body, full
+    return body, full, min_lr
 
 
-def _lik_rows_ess(lr: NDArray[Any], min_lr: NDArray[np.float64], n_chain: int
-                  ) -> tuple[NDArray[np.float64], NDArray[np.float64]]:
-    """r_eff per row from ``exp(log_lik)`` (the loo package's ``relative_eff``), and the row
-    sums of ``exp(log_lik - max log_lik)`` that the lppd needs, in one pass.
+def _lik_rows_ess(lr: NDArray[Any], n_chain: int
+                  ) -> tuple[NDArray[np.float64], NDArray[np.float64], NDArray[np.float64]]:
+    """r_eff per row from ``exp(log_lik)`` (the loo package's ``relative_eff``), with the row
+    minimum of ``lr`` and the row sums of ``exp(min_lr - lr)`` that the lppd needs, in one pass.
 
-    ESS does not change when a row is scaled, so ``exp(log_lik - max)`` stands in for
+    ESS does not change when a row is scaled, so ``exp(log_lik - max log_lik)`` stands in for
     ``exp(log_lik)``, which would overflow or underflow.
     """
     n, s = lr.shape
@@ -567,13 +578,18 @@ def _lik_rows_ess(lr: NDArray[Any], min_lr: NDArray[np.float64], n_chain: int
     rb = max(1, _BLOCK_BYTES // (8 * s))
     r_eff = np.empty(n)
     full = np.empty(n)
+    min_lr = np.empty(n)
     with np.errstate(under="ignore", over="ignore"):
         for r0 in range(0, n, rb):
             r1 = min(n, r0 + rb)
-            lik = np.exp(min_lr[r0:r1, None] - lr[r0:r1])
+            blk = lr[r0:r1]
+            mn = blk.min(axis=1).astype(np.float64)
+            min_lr[r0:r1] = mn
+            lik = np.subtract(mn[:, None], blk, dtype=np.float64)
+            np.exp(lik, out=lik)
             full[r0:r1] = lik.sum(axis=1)
             r_eff[r0:r1] = _ess_mean_rows(lik.reshape(r1 - r0, n_chain, n_draw)) / s
-    return r_eff, full
+    return r_eff, full, min_lr
 
 
 def _log_sum_exp_rows(a: NDArray[np.float64]) -> NDArray[np.float64]:
@@ -602,15 +618,14 @@ def _psis_chunk(raw: NDArray[Any], r_eff: NDArray[np.float64] | None, work: np.d
     n_chain, n_draw, n = raw.shape
     s = n_chain * n_draw
     lr = _to_rows(raw, work, negate=True)  # log importance ratios, one row per observation
-    max_lr = lr.max(axis=1).astype(np.float64)
-    min_lr = lr.min(axis=1).astype(np.float64)
-    full = None
+    full = min_lr = None
     if r_eff is None:
-        r_eff, full = _lik_rows_ess(lr, min_lr, n_chain)
+        r_eff, full, min_lr = _lik_rows_ess(lr, n_chain)
         r_eff = np.where(np.isfinite(r_eff), r_eff, 1.0)
     m = psis_tail_length(s, r_eff, rounding)
     m_max = int(m.max())
     top, top_idx = _select_top(lr, m_max, with_index=weights)
+    max_lr = top[:, -1].copy()  # the row maximum, known once the tail is selected
     tails = _smooth_tails(top, max_lr, m)
     if weights:
         assert top_idx is not None
@@ -620,8 +635,9 @@ def _psis_chunk(raw: NDArray[Any], r_eff: NDArray[np.float64] | None, work: np.d
         lw -= _log_sum_exp_rows(lw)[:, None]
         return _ChunkPsis(k=tails.k, r_eff=r_eff, log_weights=lw)
     kth = s - m_max - 1
-    body, full2 = _exp_sums(lr, kth, max_lr, None if full is not None else min_lr)
-    full = full if full is not None else full2
+    body, full2, min2 = _exp_sums(lr, kth, max_lr, want_full=full is None)
+    if full is None:
+        full, min_lr = full2, min2
     body += tails.body_top
     with np.errstate(under="ignore", divide="ignore"):
         tail_w = np.where(tails.in_tail, np.exp(tails.smoothed), 0.0).sum(axis=1)
@@ -631,9 +647,71 @@ def _psis_chunk(raw: NDArray[Any], r_eff: NDArray[np.float64] | None, work: np.d
     with np.errstate(under="ignore", divide="ignore", invalid="ignore"):
         ratio = np.where(tails.in_tail, np.exp(tails.smoothed - tails.raw), 0.0).sum(axis=1)
         elpd_i = np.log((s - m) + ratio) - log_norm - max_lr
-        assert full is not None
+        assert full is not None and min_lr is not None
         lppd_i = np.log(full) - min_lr - math.log(s)
     return _ChunkPsis(k=tails.k, r_eff=r_eff, elpd_i=elpd_i, lppd_i=lppd_i)
+
+
+# --------------------------------------------------------------------------------------------
+# Driving the chunks
+
+
+def _n_workers(workers: int | None) -> int:
+    if workers is not None:
+        if workers < 1:
+            raise ValueError("workers must be at least 1")
+        return int(workers)
+    try:
+        cpus = len(os.sched_getaffinity(0))
+    except AttributeError:  # not on Linux
+        cpus = os.cpu_count() or 1
+    return max(1, min(cpus, _MAX_DEFAULT_WORKERS))
+
+
+def _plan(src: Any, shape: tuple[int, int, int], work: np.dtype, r_all: NDArray | None,
+          chunk_bytes: int, workers: int, row_bytes: int) -> tuple[int, int]:
+    """Observations per chunk and number of threads.
+
+    Each of the ``workers`` chunks in flight gets ``chunk_bytes / workers``: the working memory
+    of one observation is its row of log ratios (``row_bytes`` per draw) plus the tail arrays,
+    plus a copy of the raw chunk when the source does not give numpy views.
+    """
+    n_chain, n_draw, n_obs = shape
+    s = n_chain * n_draw
+    r_min = float(r_all.min()) if r_all is not None and n_obs else 0.2  # M <= 0.2 S anyway
+    per_obs = s * row_bytes + _tail_bytes(s, r_min)
+    if not isinstance(src, np.ndarray) or np.dtype(src.dtype) != work:
+        per_obs += s * work.itemsize
+    if chunk_bytes <= 0:
+        raise ValueError("chunk_bytes must be positive")
+    step = _obs_per_chunk(per_obs, chunk_bytes // workers, n_obs)
+    return step, min(workers, -(-n_obs // step)) if n_obs else 1
+
+
+def _map_chunks[T](src: Any, n_obs: int, step: int, work: np.dtype, workers: int,
+                   fn: Callable[[NDArray[Any], slice], T]) -> Iterator[tuple[slice, T]]:
+    """Apply ``fn(raw_chunk, obs_slice)`` to every chunk, in order.
+
+    With several workers the chunks run on threads (numpy releases the GIL in the ufunc loops,
+    partitions and FFTs that take the time); at most ``workers`` chunks are in flight, so memory
+    stays within the plan. Chunks are read from the source in the calling thread only, so a
+    source that is not thread-safe (an HDF5 dataset, say) is never read concurrently.
+    """
+    slices = [slice(i, min(n_obs, i + step)) for i in range(0, n_obs, step)]
+    if workers <= 1 or len(slices) <= 1:
+        for sl in slices:
+            yield sl, fn(_read(src, sl, work), sl)
+        return
+    with ThreadPoolExecutor(max_workers=workers) as pool:
+        pending: deque[tuple[slice, Future[T]]] = deque()
+        for sl in slices:
+            if len(pending) >= workers:
+                done_sl, fut = pending.popleft()
+                yield done_sl, fut.result()
+            pending.append((sl, pool.submit(fn, _read(src, sl, work), sl)))
+        while pending:
+            done_sl, fut = pending.popleft()
+            yield done_sl, fut.result()
 
 
 # --------------------------------------------------------------------------------------------
@@ -646,6 +724,7 @@ def psis_loo(
     r_eff: REff = "log_lik",
     tail_rounding: TailRounding = "ceil",
     chunk_bytes: int = DEFAULT_CHUNK_BYTES,
+    workers: int | None = None,
 ) -> LooResult:
     """PSIS-LOO (Vehtari, Gelman & Gabry 2017) with Pareto smoothed importance sampling
     (Vehtari, Simpson, Gelman, Yao & Gabry 2024).
@@ -663,28 +742,30 @@ def psis_loo(
     tail_rounding : {"ceil", "floor"}
         Tail length rounding, see :func:`psis_tail_length` (``"floor"`` matches arviz-stats).
     chunk_bytes : int
-        Budget for the working memory of one chunk of observations.
+        Budget for the working memory of all chunks in flight, beside the input.
+    workers : int, optional
+        Threads working on chunks; default: the usable CPUs, at most 8. Results do not depend
+        on it.
 
     Returns
     -------
     LooResult
     """
-    src, (n_chain, n_draw, n_obs), work = _source(log_lik)
+    src, shape, work = _source(log_lik)
+    n_chain, n_draw, n_obs = shape
     s = n_chain * n_draw
     r_all = _r_eff_spec(r_eff, n_obs)
-    r_min = float(r_all.min()) if r_all is not None and n_obs else 0.2  # 0.2: tail <= 0.2 S
-    per_obs = s * work.itemsize + _tail_bytes(s, r_min)
-    if not isinstance(src, np.ndarray) or np.dtype(src.dtype) != work:
-        per_obs += s * work.itemsize  # the chunk is read into a new array
-    step = _obs_per_chunk(per_obs, chunk_bytes, n_obs)
+    step, nw = _plan(src, shape, work, r_all, chunk_bytes, _n_workers(workers), work.itemsize)
+
+    def one(raw: NDArray[Any], sl: slice) -> _ChunkPsis:
+        return _psis_chunk(raw, None if r_all is None else r_all[sl], work, tail_rounding,
+                           weights=False)
+
     elpd_i = np.empty(n_obs)
     lppd_i = np.empty(n_obs)
     k = np.empty(n_obs)
     r_used = np.empty(n_obs)
-    for i0 in range(0, n_obs, step):
-        sl = slice(i0, min(n_obs, i0 + step))
-        res = _psis_chunk(_read(src, sl, work), None if r_all is None else r_all[sl], work,
-                          tail_rounding, weights=False)
+    for sl, res in _map_chunks(src, n_obs, step, work, nw, one):
         assert res.elpd_i is not None and res.lppd_i is not None
         elpd_i[sl], lppd_i[sl], k[sl], r_used[sl] = res.elpd_i, res.lppd_i, res.k, res.r_eff
     p_loo_i = lppd_i - elpd_i
@@ -702,11 +783,13 @@ def iter_psis_log_weights(
     r_eff: REff = "log_lik",
     tail_rounding: TailRounding = "ceil",
     chunk_bytes: int = DEFAULT_CHUNK_BYTES,
+    workers: int | None = None,
 ) -> Iterator[tuple[slice, NDArray[np.float64], NDArray[np.float64]]]:
     """Normalized PSIS log weights, one chunk of observations at a time.
 
     For leave-one-out expectations (e.g. PSIS-weighted LOO-PIT) over arrays too large to hold
-    all weights at once. Arguments as in :func:`psis_loo`.
+    all weights at once. Arguments as in :func:`psis_loo`; the weights of up to ``workers``
+    chunks are computed ahead of the one being consumed.
 
     Yields
     ------
@@ -717,19 +800,18 @@ def iter_psis_log_weights(
         (``logsumexp`` over chains and draws is 0). A transposed view of an (obs, draws) block.
     pareto_k : ndarray, shape (len(obs),)
     """
-    src, (n_chain, n_draw, n_obs), work = _source(log_lik)
-    s = n_chain * n_draw
+    src, shape, work = _source(log_lik)
+    n_chain, n_draw, n_obs = shape
     r_all = _r_eff_spec(r_eff, n_obs)
-    r_min = float(r_all.min()) if r_all is not None and n_obs else 0.2
-    # the ratios, their indices from argpartition, and the float64 weights
-    per_obs = s * (work.itemsize + 8 + 8) + _tail_bytes(s, r_min)
-    if not isinstance(src, np.ndarray) or np.dtype(src.dtype) != work:
-        per_obs += s * work.itemsize
-    step = _obs_per_chunk(per_obs, chunk_bytes, n_obs)
-    for i0 in range(0, n_obs, step):
-        sl = slice(i0, min(n_obs, i0 + step))
-        res = _psis_chunk(_read(src, sl, work), None if r_all is None else r_all[sl], work,
-                          tail_rounding, weights=True)
+    # per draw: the ratio, its index from argpartition and the float64 weight
+    step, nw = _plan(src, shape, work, r_all, chunk_bytes, _n_workers(workers),
+                     work.itemsize + 16)
+
+    def one(raw: NDArray[Any], sl: slice) -> _ChunkPsis:
+        return _psis_chunk(raw, None if r_all is None else r_all[sl], work, tail_rounding,
+                           weights=True)
+
+    for sl, res in _map_chunks(src, n_obs, step, work, nw, one):
         assert res.log_weights is not None
         yield sl, res.log_weights.T.reshape(n_chain, n_draw, sl.stop - sl.start), res.k
 
@@ -764,55 +846,67 @@ def psis_log_weights(
 
 
 def relative_eff(
-    log_lik: SliceableArray | ArrayLike, *, chunk_bytes: int = DEFAULT_CHUNK_BYTES
+    log_lik: SliceableArray | ArrayLike,
+    *,
+    chunk_bytes: int = DEFAULT_CHUNK_BYTES,
+    workers: int | None = None,
 ) -> NDArray[np.float64]:
     """Relative efficiency per observation from the chains of ``exp(log_lik)``.
 
     The loo package's ``relative_eff(exp(log_lik))``: split-chain ESS of the mean
     (:func:`ess_mean`) divided by S.
     """
-    src, (n_chain, n_draw, n_obs), work = _source(log_lik)
-    s = n_chain * n_draw
-    per_obs = 2 * s * work.itemsize
-    step = _obs_per_chunk(per_obs, chunk_bytes, n_obs)
-    out = np.empty(n_obs)
-    for i0 in range(0, n_obs, step):
-        sl = slice(i0, min(n_obs, i0 + step))
-        lr = _to_rows(_read(src, sl, work), work, negate=True)
-        out[sl] = _lik_rows_ess(lr, lr.min(axis=1).astype(np.float64), n_chain)[0]
+    src, shape, work = _source(log_lik)
+    n_chain = shape[0]
+    step, nw = _plan(src, shape, work, np.ones(1), chunk_bytes, _n_workers(workers),
+                     work.itemsize)
+
+    def one(raw: NDArray[Any], sl: slice) -> NDArray[np.float64]:
+        return _lik_rows_ess(_to_rows(raw, work, negate=True), n_chain)[0]
+
+    out = np.empty(shape[2])
+    for sl, r in _map_chunks(src, shape[2], step, work, nw, one):
+        out[sl] = r
     return out
 
 
 def waic(
-    log_lik: SliceableArray | ArrayLike, *, chunk_bytes: int = DEFAULT_CHUNK_BYTES
+    log_lik: SliceableArray | ArrayLike,
+    *,
+    chunk_bytes: int = DEFAULT_CHUNK_BYTES,
+    workers: int | None = None,
 ) -> WaicResult:
     """WAIC (Watanabe 2010) as in Vehtari, Gelman & Gabry (2017), eqs. 11-13.
 
     ``lppd_i = log mean_s p(y_i | theta_s)``, ``p_waic_i = var_s log p(y_i | theta_s)`` (sample
     variance, ddof = 1), ``elpd_waic_i = lppd_i - p_waic_i``. Input as in :func:`psis_loo`.
     """
-    src, (n_chain, n_draw, n_obs), work = _source(log_lik)
-    s = n_chain * n_draw
-    per_obs = s * work.itemsize
-    if not isinstance(src, np.ndarray) or np.dtype(src.dtype) != work:
-        per_obs += s * work.itemsize
-    step = _obs_per_chunk(per_obs, chunk_bytes, n_obs)
-    lppd_i = np.empty(n_obs)
-    p_i = np.empty(n_obs)
-    for i0 in range(0, n_obs, step):
-        sl = slice(i0, min(n_obs, i0 + step))
+    src, shape, work = _source(log_lik)
+    s = shape[0] * shape[1]
+    n_obs = shape[2]
+    step, nw = _plan(src, shape, work, np.ones(1), chunk_bytes, _n_workers(workers),
+                     work.itemsize)
+
+    def one(raw: NDArray[Any], sl: slice) -> tuple[NDArray, NDArray]:
         # One row of draws per observation, like psis_loo: each row is then reduced by the same
         # operations whatever the chunk, so results do not depend on the chunk size.
-        ll = _to_rows(_read(src, sl, work), work, negate=False)
-        mx = ll.max(axis=1).astype(np.float64)
+        ll = _to_rows(raw, work, negate=False)
+        n = ll.shape[0]
+        lppd, var = np.empty(n), np.empty(n)
         rb = max(1, _BLOCK_BYTES // (8 * s))
         with np.errstate(under="ignore"):
-            for r0 in range(0, ll.shape[0], rb):
+            for r0 in range(0, n, rb):
                 blk = ll[r0 : r0 + rb]
-                rows = slice(i0 + r0, i0 + r0 + blk.shape[0])
-                d = np.subtract(blk, mx[r0 : r0 + rb, None], dtype=np.float64)
-                lppd_i[rows] = np.log(np.exp(d).sum(axis=1)) + mx[r0 : r0 + rb] - math.log(s)
-                p_i[rows] = np.var(blk, axis=1, ddof=1, dtype=np.float64)
+                mx = blk.max(axis=1).astype(np.float64)
+                d = np.subtract(blk, mx[:, None], dtype=np.float64)
+                lppd[r0 : r0 + rb] = np.log(np.exp(d).sum(axis=1)) + mx - math.log(s)
+                var[r0 : r0 + rb] = np.var(blk, axis=1, ddof=1, dtype=np.float64)
+        return lppd, var
+
+    lppd_i = np.empty(n_obs)
+    p_i = np.empty(n_obs)
+    for sl, (lppd, var) in _map_chunks(src, n_obs, step, work, nw, one):
+        lppd_i[sl], p_i[sl] = lppd, var
     elpd_i = lppd_i - p_i
     se = float(np.sqrt(n_obs * np.var(elpd_i, ddof=1))) if n_obs > 1 else 0.0
     return WaicResult(
