@@ -11,8 +11,8 @@ Methods, under their published names:
   Gelman, Yao & Gabry (2024), "Pareto smoothed importance sampling", Journal of Machine Learning
   Research 25(72). The generalized Pareto fit is the empirical Bayes estimate of Zhang & Stephens
   (2009), "A new and efficient estimation method for the generalized Pareto distribution",
-  Technometrics 51(3), with the weakly informative prior on k used by the ``loo`` R package and
-  arviz-stats (Vehtari et al. 2024, appendix C).
+  Technometrics 51(3), with the weakly informative prior on k that Vehtari et al. (2024)
+  recommend for small tails, as the ``loo`` R package and arviz-stats apply it.
 - PSIS-LOO and WAIC: Vehtari, Gelman & Gabry (2017), "Practical Bayesian model evaluation using
   leave-one-out cross-validation and WAIC", Statistics and Computing 27:1413-1432; WAIC after
   Watanabe (2010), Journal of Machine Learning Research 11:3571-3594.
@@ -55,8 +55,10 @@ __all__ = [
     "waic",
 ]
 
-#: Working memory per chunk of observations (bytes), beside the input array itself.
+#: Largest default working memory (bytes) of the chunks in flight, beside the input array; the
+#: default is an eighth of the input for smaller arrays, but not under 8 MiB.
 DEFAULT_CHUNK_BYTES = 64 * 2**20
+_MIN_AUTO_CHUNK_BYTES = 8 * 2**20
 
 # Blocks of rows for the exp passes and the ESS: about 1 MB, so one block stays in cache
 # between the passes that read it.
@@ -64,9 +66,9 @@ _BLOCK_BYTES = 2**20
 # Columns per step of the chunk transpose: numpy's plain transposed copy strides through memory
 # and is 2-3x slower than copying it in blocks.
 _TRANSPOSE_COLS = 256
-# Weakly informative prior on k: normal(0.5, .) worth 10 observations (Vehtari et al. 2024,
-# appendix C), and the grid scale of Zhang & Stephens (2009); the same constants as the loo
-# package and arviz-stats.
+# Weakly informative prior on k: centred at 0.5 and worth 10 observations (Vehtari et al.
+# 2024), and the grid scale of Zhang & Stephens (2009); the same constants as the loo package
+# and arviz-stats.
 _PRIOR_K_WEIGHT = 10
 _PRIOR_K_MEAN = 0.5
 _PRIOR_B_SCALE = 3
@@ -402,8 +404,8 @@ def _gpd_fit(x: NDArray[np.float64], n: NDArray[np.int64]) -> tuple[NDArray, NDA
     Each row holds ``n`` exceedances sorted ascending and right-aligned, padded on the left
     with zeros (``log1p(-b * 0) = 0``, so padding adds nothing to the sums). The profile
     likelihood is evaluated on the grid of ``30 + floor(sqrt(n))`` values of b; k gets the
-    weakly informative prior of Vehtari et al. (2024, appendix C). A Python loop runs over the
-    grid points only, never over observations.
+    weakly informative prior of Vehtari et al. (2024). A Python loop runs over the grid points
+    only, never over observations.
 
     Returns
     -------
@@ -617,6 +619,10 @@ def _psis_chunk(raw: NDArray[Any], r_eff: NDArray[np.float64] | None, work: np.d
     """PSIS for one chunk (C, D, n): LOO quantities, or the normalized log weights."""
     n_chain, n_draw, n = raw.shape
     s = n_chain * n_draw
+    if n == 0:
+        empty = np.empty(0)
+        return _ChunkPsis(k=empty, r_eff=empty, elpd_i=empty, lppd_i=empty,
+                          log_weights=np.empty((0, s)))
     lr = _to_rows(raw, work, negate=True)  # log importance ratios, one row per observation
     full = min_lr = None
     if r_eff is None:
@@ -669,7 +675,7 @@ def _n_workers(workers: int | None) -> int:
 
 
 def _plan(src: Any, shape: tuple[int, int, int], work: np.dtype, r_all: NDArray | None,
-          chunk_bytes: int, workers: int, row_bytes: int) -> tuple[int, int]:
+          chunk_bytes: int | None, workers: int, row_bytes: int) -> tuple[int, int]:
     """Observations per chunk and number of threads.
 
     Each of the ``workers`` chunks in flight gets ``chunk_bytes / workers``: the working memory
@@ -682,6 +688,10 @@ def _plan(src: Any, shape: tuple[int, int, int], work: np.dtype, r_all: NDArray 
     per_obs = s * row_bytes + _tail_bytes(s, r_min)
     if not isinstance(src, np.ndarray) or np.dtype(src.dtype) != work:
         per_obs += s * work.itemsize
+    if chunk_bytes is None:
+        # Small arrays get a budget in proportion, so the work never dwarfs the input.
+        array_bytes = s * n_obs * work.itemsize
+        chunk_bytes = int(min(DEFAULT_CHUNK_BYTES, max(_MIN_AUTO_CHUNK_BYTES, array_bytes // 8)))
     if chunk_bytes <= 0:
         raise ValueError("chunk_bytes must be positive")
     step = _obs_per_chunk(per_obs, chunk_bytes // workers, n_obs)
@@ -723,7 +733,7 @@ def psis_loo(
     *,
     r_eff: REff = "log_lik",
     tail_rounding: TailRounding = "ceil",
-    chunk_bytes: int = DEFAULT_CHUNK_BYTES,
+    chunk_bytes: int | None = None,
     workers: int | None = None,
 ) -> LooResult:
     """PSIS-LOO (Vehtari, Gelman & Gabry 2017) with Pareto smoothed importance sampling
@@ -741,8 +751,10 @@ def psis_loo(
         draws: pass ``posterior_r_eff(posterior)`` to reproduce it.
     tail_rounding : {"ceil", "floor"}
         Tail length rounding, see :func:`psis_tail_length` (``"floor"`` matches arviz-stats).
-    chunk_bytes : int
-        Budget for the working memory of all chunks in flight, beside the input.
+    chunk_bytes : int, optional
+        Budget for the working memory of all chunks in flight, beside the input (default:
+        ``DEFAULT_CHUNK_BYTES`` = 64 MiB, or an eighth of the input if less, at least 8 MiB).
+        Results do not depend on it.
     workers : int, optional
         Threads working on chunks; default: the usable CPUs, at most 8. Results do not depend
         on it.
@@ -782,7 +794,7 @@ def iter_psis_log_weights(
     *,
     r_eff: REff = "log_lik",
     tail_rounding: TailRounding = "ceil",
-    chunk_bytes: int = DEFAULT_CHUNK_BYTES,
+    chunk_bytes: int | None = None,
     workers: int | None = None,
 ) -> Iterator[tuple[slice, NDArray[np.float64], NDArray[np.float64]]]:
     """Normalized PSIS log weights, one chunk of observations at a time.
@@ -848,7 +860,7 @@ def psis_log_weights(
 def relative_eff(
     log_lik: SliceableArray | ArrayLike,
     *,
-    chunk_bytes: int = DEFAULT_CHUNK_BYTES,
+    chunk_bytes: int | None = None,
     workers: int | None = None,
 ) -> NDArray[np.float64]:
     """Relative efficiency per observation from the chains of ``exp(log_lik)``.
@@ -873,7 +885,7 @@ def relative_eff(
 def waic(
     log_lik: SliceableArray | ArrayLike,
     *,
-    chunk_bytes: int = DEFAULT_CHUNK_BYTES,
+    chunk_bytes: int | None = None,
     workers: int | None = None,
 ) -> WaicResult:
     """WAIC (Watanabe 2010) as in Vehtari, Gelman & Gabry (2017), eqs. 11-13.
