@@ -86,12 +86,12 @@ class SliceableArray(Protocol):
     """What the kernels need of an input: a shape, a dtype and slicing along the last axis."""
 
     @property
-    def shape(self) -> tuple[int, ...]: ...  # noqa: D102
+    def shape(self) -> tuple[int, ...]: ...
 
     @property
-    def dtype(self) -> Any: ...  # noqa: D102
+    def dtype(self) -> Any: ...
 
-    def __getitem__(self, key: Any) -> Any: ...  # noqa: D105
+    def __getitem__(self, key: Any) -> Any: ...
 
 
 @dataclass(frozen=True)
