@@ -16,7 +16,19 @@ from auditor.boundary import Boundary
 from auditor.loaders import Loaded, LoadProblem, load_draws
 from auditor.loaders.stan_data import read_stan_data
 from auditor.model import Analysis, AnalysisSpec, InputProblem
+from auditor.predictive import (
+    CONFIGURED,
+    GROUP,
+    NAME,
+    PROGRAM,
+    Pairing,
+    Source,
+    name_candidates,
+    observed_names,
+    program_sources,
+)
 from auditor.programs.read import read_program
+from auditor.programs.summary import ProgramSummary
 
 
 def _problems(items: list, kind_default: str = "unreadable") -> list[InputProblem]:
@@ -26,42 +38,115 @@ def _problems(items: list, kind_default: str = "unreadable") -> list[InputProble
     ]
 
 
-def _move(tree: xr.DataTree, src: str, dst: str, names: dict[str, str]) -> xr.DataTree:
-    """Move variables ``names`` (old -> new name) from group ``src`` into ``dst``."""
-    if src not in tree.children:
-        return tree
-    ds = tree[src].to_dataset()
-    present = {old: new for old, new in names.items() if old in ds.data_vars}
-    if not present:
-        return tree
-    moved = ds[list(present)].rename(present)
-    groups = {name: tree[name].to_dataset() for name in tree.children}
-    groups[src] = ds.drop_vars(list(present))
-    if dst in groups:
-        groups[dst] = groups[dst].merge(moved)
-    else:
-        groups[dst] = moved
-    out = xr.DataTree.from_dict(groups)
-    out.attrs = dict(tree.attrs)
+def _groups(tree: xr.DataTree | None) -> dict[str, xr.Dataset]:
+    if tree is None:
+        return {}
+    return {name: tree[name].to_dataset() for name in tree.children}
+
+
+def _tree(groups: dict[str, xr.Dataset], attrs: dict) -> xr.DataTree:
+    out = xr.DataTree.from_dict({k: v for k, v in groups.items() if v.data_vars or
+                                 k in ("observed_data", "constant_data")})
+    out.attrs = dict(attrs)
     return out
 
 
-def _arrange_stan_groups(tree: xr.DataTree, spec: AnalysisSpec, prefix: str) -> xr.DataTree:
-    """Put ``log_lik`` and the predictive draws of CmdStan runs into their groups.
+def _take(groups: dict[str, xr.Dataset], source: str, name: str, target: str,
+          new_name: str) -> None:
+    """Move variable ``name`` of group ``source`` into group ``target`` as ``new_name``."""
+    ds = groups[source]
+    moved = ds[[name]].rename({name: new_name})
+    groups[source] = ds.drop_vars([name])
+    groups[target] = groups[target].merge(moved) if target in groups else moved
 
-    ``prefix`` is ``""`` for the posterior run and ``"prior"`` for the prior run.
+
+def _variables(groups: dict[str, xr.Dataset], *names: str) -> list[str]:
+    return [str(v) for g in names if g in groups for v in groups[g].data_vars]
+
+
+def _pair(
+    spec: AnalysisSpec,
+    program: ProgramSummary | None,
+    post: dict[str, xr.Dataset],
+    prior: dict[str, xr.Dataset],
+) -> list[Pairing]:
+    """Find each observed variable's companions and move them into their groups.
+
+    ``post`` are the groups of the posterior run, ``prior`` those of a separate
+    prior-only run (CmdStan); both are changed in place: replicated draws end up
+    in ``posterior_predictive`` / ``prior_predictive`` and the pointwise
+    log-likelihood in ``log_likelihood``, under the observed variable's name when
+    they came from another group.
     """
-    target = spec.observed or spec.predictive
-    if prefix == "prior":
-        tree = _move(tree, "posterior", "prior_predictive", {spec.predictive: target})
-        groups = {
-            ("prior" if name == "posterior" else name): tree[name].to_dataset()
-            for name in tree.children
-            if name in ("posterior", "prior_predictive")
-        }
-        return xr.DataTree.from_dict(groups)
-    tree = _move(tree, "posterior", "log_likelihood", {spec.log_lik: target})
-    return _move(tree, "posterior", "posterior_predictive", {spec.predictive: target})
+    observed = observed_names(spec.observed, program,
+                              post["observed_data"].data_vars if "observed_data" in post else ())
+    single = len(observed) == 1
+    if not observed:
+        # The observed variable is unknown (draws without a program or configuration):
+        # still keep the conventionally named companions out of the parameters, so
+        # that convergence rules judge parameters only.
+        for name, target in (("log_lik", "log_likelihood"), ("y_rep", "posterior_predictive")):
+            _companion(post, name, [(name, NAME)], target)
+            _companion(prior, name, [(name, NAME)], target)
+        prior.pop("log_likelihood", None)
+        if "posterior_predictive" in prior:
+            prior["prior_predictive"] = prior.pop("posterior_predictive")
+    pairings = []
+    for y in observed:
+        rng, loglik = program_sources(program, y)
+        mine = single or spec.observed == y
+        configured_pred = spec.predictive if mine else None
+        configured_ll = spec.log_lik if mine else None
+        pred = [(configured_pred, CONFIGURED), (rng, PROGRAM), (y, GROUP),
+                *name_candidates(y, single, "predictive")]
+        logs = [(configured_ll, CONFIGURED), (loglik, PROGRAM), (y, GROUP),
+                *name_candidates(y, single, "log_likelihood")]
+        pairing = Pairing(y)
+        pairing.posterior_predictive = _companion(post, y, pred, "posterior_predictive")
+        pairing.log_likelihood = _companion(post, y, logs, "log_likelihood")
+        # A prior-only run (CmdStan) holds its replicated draws among its own
+        # draws; otherwise a prior_predictive group of the posterior run's file.
+        # Its pointwise log-likelihood is taken out of its draws and dropped: with
+        # the likelihood switched off it describes nothing.
+        _companion(prior, y, logs, "log_likelihood")
+        prior.pop("log_likelihood", None)
+        pairing.prior_predictive = _companion(prior, y, pred, "prior_predictive") or (
+            _companion(post, y, pred[:1] + [(y, GROUP)], "prior_predictive",
+                       search=("prior_predictive",)))
+        for key, configured, found in (
+                ("predictive", configured_pred, pairing.posterior_predictive),
+                ("log_lik", configured_ll, pairing.log_likelihood)):
+            if configured and (found is None or found.how != CONFIGURED):
+                group = "posterior_predictive" if key == "predictive" else "log_likelihood"
+                listed = ", ".join(_variables(post, "posterior", group)[:12]) or "none"
+                pairing.notes.append(f"the configured {key} = {configured!r} is not among the "
+                                     f"draws' variables ({listed})")
+        pairings.append(pairing)
+    return pairings
+
+
+def _companion(groups: dict[str, xr.Dataset], y: str, candidates: list[tuple[str | None, str]],
+               target: str, search: tuple[str, ...] | None = None) -> Source | None:
+    """The first candidate found, moved into group ``target`` when it is elsewhere.
+
+    Each ``(name, how)`` is looked for in ``target`` and then the ``posterior``
+    group (CmdStan writes generated quantities among the draws); a ``group``
+    candidate only in ``target``. A variable moved into ``target`` is stored
+    under ``y``'s name unless that is taken.
+    """
+    search = search or (target, "posterior")
+    for name, how in candidates:
+        if not name:
+            continue
+        for group in (target,) if how == GROUP else search:
+            if name not in _variables(groups, group):
+                continue
+            if group == target:
+                return Source(name, how, name)
+            stored = name if y in _variables(groups, target) else y
+            _take(groups, group, name, target, stored)
+            return Source(name, how, stored)
+    return None
 
 
 def _load(paths: list[Path], gate: Boundary) -> Loaded:
@@ -124,47 +209,6 @@ def _assemble(spec: AnalysisSpec, gate: Boundary | None = None) -> Analysis:
     gate = gate or Boundary.unconfined()
     analysis = Analysis(name=spec.name, tree=None, spec=spec)
     analysis.problems.extend(spec.problems)
-    if spec.draws:
-        missing = [p for p in spec.draws if not _exists(p)]
-        for p in missing:
-            analysis.problems.append(InputProblem("unreadable", p, "draws file not found"))
-        present = [p for p in spec.draws if _exists(p)]
-        if present:
-            loaded = _load(present, gate)
-            analysis.settings = loaded.settings
-            analysis.sources = list(loaded.sources)
-            analysis.problems.extend(_problems(loaded.problems))
-            tree = loaded.tree
-            if tree is not None and present[0].suffix.lower() == ".csv":
-                tree = _arrange_stan_groups(tree, spec, "")
-            analysis.tree = tree
-    if spec.prior_draws:
-        for p in spec.prior_draws:
-            if not _exists(p):
-                analysis.problems.append(
-                    InputProblem("unreadable", p, "prior draws file not found")
-                )
-        loaded = _load([p for p in spec.prior_draws if _exists(p)], gate)
-        analysis.problems.extend(_problems(loaded.problems))
-        analysis.sources.extend(p for p in loaded.sources if p not in analysis.sources)
-        if loaded.tree is not None:
-            prior = _arrange_stan_groups(loaded.tree, spec, "prior")
-            groups = {n: analysis.tree[n].to_dataset() for n in analysis.tree.children} if (
-                analysis.tree is not None
-            ) else {}
-            groups.update({n: prior[n].to_dataset() for n in prior.children})
-            attrs = dict(analysis.tree.attrs) if analysis.tree is not None else {}
-            analysis.tree = xr.DataTree.from_dict(groups)
-            analysis.tree.attrs = attrs
-    if spec.data is not None:
-        if _exists(spec.data):
-            values, problems = read_stan_data(spec.data, gate)
-            analysis.data = dict(values)
-            analysis.problems.extend(_problems(problems))
-        else:
-            analysis.problems.append(InputProblem("unreadable", spec.data, "data file not found"))
-    elif analysis.tree is not None:
-        analysis.data = _data_from_tree(analysis.tree)
     if spec.model is not None:
         if _exists(spec.model):
             analysis.program = read_program(spec.model, gate)
@@ -177,6 +221,51 @@ def _assemble(spec: AnalysisSpec, gate: Boundary | None = None) -> Analysis:
             analysis.problems.append(
                 InputProblem("unreadable", spec.model, "model program not found")
             )
+    post: dict[str, xr.Dataset] = {}
+    attrs: dict = {}
+    if spec.draws:
+        missing = [p for p in spec.draws if not _exists(p)]
+        for p in missing:
+            analysis.problems.append(InputProblem("unreadable", p, "draws file not found"))
+        present = [p for p in spec.draws if _exists(p)]
+        if present:
+            loaded = _load(present, gate)
+            analysis.settings = loaded.settings
+            analysis.sources = list(loaded.sources)
+            analysis.problems.extend(_problems(loaded.problems))
+            post = _groups(loaded.tree)
+            attrs = dict(loaded.tree.attrs) if loaded.tree is not None else {}
+    prior: dict[str, xr.Dataset] = {}
+    if spec.prior_draws:
+        for p in spec.prior_draws:
+            if not _exists(p):
+                analysis.problems.append(
+                    InputProblem("unreadable", p, "prior draws file not found")
+                )
+        loaded = _load([p for p in spec.prior_draws if _exists(p)], gate)
+        analysis.problems.extend(_problems(loaded.problems))
+        analysis.sources.extend(p for p in loaded.sources if p not in analysis.sources)
+        prior = _groups(loaded.tree)
+    analysis.pairings = _pair(spec, analysis.program, post, prior)
+    # What is left of a prior-only run's draws is the prior; its sampler
+    # statistics are kept apart from the posterior run's.
+    if "posterior" in prior:
+        post["prior"] = prior["posterior"]
+    if "prior_predictive" in prior:
+        post["prior_predictive"] = prior["prior_predictive"]
+    if "sample_stats" in prior:
+        post["sample_stats_prior"] = prior["sample_stats"]
+    if post:
+        analysis.tree = _tree(post, attrs)
+    if spec.data is not None:
+        if _exists(spec.data):
+            values, problems = read_stan_data(spec.data, gate)
+            analysis.data = dict(values)
+            analysis.problems.extend(_problems(problems))
+        else:
+            analysis.problems.append(InputProblem("unreadable", spec.data, "data file not found"))
+    elif analysis.tree is not None:
+        analysis.data = _data_from_tree(analysis.tree)
     if analysis.tree is not None and analysis.program is None and spec.model is None:
         if analysis.sources:
             first = analysis.sources[0]

@@ -379,8 +379,8 @@ def _analysis_spec(
         plausible_range=values.get("plausible_range"),
         declared=True,
         prior_draws=prior,
-        log_lik=values.get("log_lik", "log_lik"),
-        predictive=values.get("predictive", "y_rep"),
+        log_lik=values.get("log_lik"),
+        predictive=values.get("predictive"),
         problems=list(ctx.problems),
     )
 

@@ -17,6 +17,7 @@ from auditor import TOOL_NAME, __version__
 from auditor.assemble import assemble
 from auditor.boundary import Boundary, Refused, default_max_bytes, display
 from auditor.config import Config, check_rule_options, load_config
+from auditor.coverage import analysis_coverage
 from auditor.diagnostics import DiagnosticsTable
 from auditor.discovery import discover
 from auditor.findings import Finding, Location, Severity
@@ -200,10 +201,12 @@ def _audit_analysis(analysis: Analysis, project: Project, rules: list[RuleMeta],
     table = DiagnosticsTable(analysis.group("posterior"), one_based=one_based)
     findings: list[Finding] = []
     figures = []
+    enabled_stages: set[str] = set()
     for rule in rules:
         enabled, severity, thresholds = _rule_settings(rule, cfg)
         if not enabled or rule.check is None:
             continue
+        enabled_stages.add(rule.stage)
         ctx = RuleContext(rule, analysis, project, thresholds, severity, table,
                           options={"max_figures": cfg.max_figures})
         try:
@@ -235,6 +238,8 @@ def _audit_analysis(analysis: Analysis, project: Project, rules: list[RuleMeta],
         groups=sorted(n for n in (analysis.tree.children if analysis.tree is not None else {})
                       if analysis.group(n) is not None),
         priors=_priors(analysis, project),
+        pairings=[p.as_dict() for p in analysis.pairings],
+        coverage=[c.as_dict() for c in analysis_coverage(analysis, enabled_stages)],
     )
 
 

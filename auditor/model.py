@@ -27,6 +27,7 @@ import xarray as xr
 
 from auditor.boundary import display
 from auditor.findings import Finding
+from auditor.predictive import Pairing
 from auditor.programs.summary import ProgramSummary
 
 
@@ -94,8 +95,10 @@ class AnalysisSpec:
     plausible_range: tuple[float, float] | None = None
     declared: bool = False
     prior_draws: list[Path] = field(default_factory=list)
-    log_lik: str = "log_lik"
-    predictive: str = "y_rep"
+    #: Configured names of the pointwise log-likelihood and the replicated draws
+    #: (``None``: not configured; see :mod:`auditor.predictive`).
+    log_lik: str | None = None
+    predictive: str | None = None
     #: Problems seen while reading the declaration (paths refused by the boundary).
     problems: list[InputProblem] = field(default_factory=list)
 
@@ -123,6 +126,9 @@ class Analysis:
     problems
         Problems seen while finding and loading its files; the ``inputs.*``
         rules turn them into findings.
+    pairings
+        Each observed variable with its replicated draws and pointwise
+        log-likelihood, and how they were found (:mod:`auditor.predictive`).
     """
 
     name: str
@@ -133,6 +139,7 @@ class Analysis:
     program: ProgramSummary | None = None
     data: dict[str, Any] = field(default_factory=dict)
     problems: list[InputProblem] = field(default_factory=list)
+    pairings: list[Pairing] = field(default_factory=list)
 
     def group(self, name: str) -> xr.Dataset | None:
         """Dataset of group ``name``, or ``None`` when absent or empty."""

@@ -59,6 +59,19 @@ class AnalysisResult:
     #: Source lines around each program finding, keyed ``"path:line"``:
     #: ``[(line number, text), ...]`` (the program stage's "flagged line in context").
     excerpts: dict[str, list[tuple[int, str]]] = field(default_factory=dict)
+    #: Each observed variable with its replicated draws and log-likelihood, and how
+    #: each was found (``Pairing.as_dict()`` of :mod:`auditor.predictive`).
+    pairings: list[dict[str, Any]] = field(default_factory=list)
+    #: The workflow stages checked and not checked (``StageCoverage.as_dict()`` of
+    #: :mod:`auditor.coverage`).
+    coverage: list[dict[str, str]] = field(default_factory=list)
+
+    def stages_checked(self) -> tuple[int, int, int]:
+        """(stages checked, stages partly checked, stages that apply) of the coverage."""
+        applicable = [c for c in self.coverage if c["status"] != "not applicable"]
+        return (sum(1 for c in applicable if c["status"] == "checked"),
+                sum(1 for c in applicable if c["status"] == "partly checked"),
+                len(applicable))
 
     @property
     def worst(self) -> Severity | None:

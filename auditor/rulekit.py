@@ -81,3 +81,39 @@ def problem_findings(ctx: RuleContext, kind: str) -> Iterator[Finding]:
             evidence={"file": path, "line": p.line},
             location=Location(path, p.line) if inside else None,
         )
+
+
+# --------------------------------------------------------------------------- predictive checks
+
+
+def likelihood_of(ctx: RuleContext, observed: str) -> Distribution | None:
+    """The program's likelihood statement of ``observed``, when the program has one."""
+    prog = ctx.analysis.program
+    if prog is None:
+        return None
+    for lik in prog.likelihoods:
+        if lik.variable == observed:
+            return lik.distribution
+    return None
+
+
+def observed_location(ctx: RuleContext, observed: str) -> Location | None:
+    """Where a predictive finding about ``observed`` points: its likelihood statement,
+    else its declaration, else (``None``) the analysis's first draws file."""
+    dist = likelihood_of(ctx, observed)
+    if dist is not None:
+        return ctx.location_of(dist)
+    prog = ctx.analysis.program
+    decl = prog.declarations.get(observed) if prog is not None else None
+    return ctx.location_of(decl) if decl is not None else None
+
+
+def observed_support(ctx: RuleContext, observed: str, kind: str):  # noqa: ANN201
+    """The outcome's support: the program's declared bounds and type, else its kind."""
+    from auditor.predictive_checks import support
+
+    prog = ctx.analysis.program
+    decl = prog.declarations.get(observed) if prog is not None else None
+    lower = decl.lower.value if decl is not None and decl.lower is not None else None
+    upper = decl.upper.value if decl is not None and decl.upper is not None else None
+    return support(kind, lower, upper, integer_type=decl is not None and decl.type == "int")

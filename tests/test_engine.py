@@ -44,7 +44,7 @@ def test_json_report_is_byte_identical_and_has_no_absolute_paths(tmp_path):
     assert text == (b / "audit.json").read_text()
     assert str(tmp_path) not in text
     data = json.loads(text)
-    assert data["format_version"] == 1 and "statistician" in data["caution"]
+    assert data["format_version"] == 2 and "statistician" in data["caution"]
     (analysis,) = data["analyses"]
     assert analysis["sources"] == [f"fit-{i}.csv" for i in range(1, 5)]
     assert {"rhat", "ess_bulk", "ess_tail", "mcse_mean"} <= set(analysis["diagnostics"][0])

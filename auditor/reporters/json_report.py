@@ -4,6 +4,10 @@
 
 1. First version: tool, project, gate, summary, caution, analyses with sources,
    settings, diagnostics and findings; project-level findings; inputs with SHA-256.
+2. Per analysis: ``pairings`` (each observed variable with its replicated draws,
+   prior predictive draws and log-likelihood, and how each was found:
+   configured, program, group or name) and ``coverage`` (every workflow stage:
+   checked, partly checked, not checked with the missing input, not applicable).
 """
 
 from __future__ import annotations
@@ -18,7 +22,7 @@ from auditor.result import AuditResult
 
 FORMAT = "json"
 FILENAME = "audit.json"
-FORMAT_VERSION = 1
+FORMAT_VERSION = 2
 
 
 def json_safe(value: Any) -> Any:
@@ -76,6 +80,8 @@ def to_dict(result: AuditResult) -> dict[str, Any]:
                 "chains": a.n_chains,
                 "draws_per_chain": a.n_draws,
                 "settings": json_safe(a.settings),
+                "coverage": json_safe(a.coverage),
+                "pairings": json_safe(a.pairings),
                 "diagnostics": json_safe(a.diagnostics),
                 "findings": [finding_dict(f) for f in a.findings],
             }

@@ -11,7 +11,7 @@ from pathlib import Path
 from typing import TextIO
 
 from auditor.findings import STAGES, Finding
-from auditor.result import AuditResult
+from auditor.result import AnalysisResult, AuditResult
 
 _COLOURS = {"error": "31", "warning": "33", "note": "36", "fail": "31", "review": "33",
             "pass": "32", "dim": "2", "bold": "1"}
@@ -51,6 +51,23 @@ def _clip(text: str, width: int = 160) -> str:
     return text if len(text) <= width else text[: width - 1] + "…"
 
 
+def _gap(c: dict) -> tuple[str, str, str] | None:
+    """A stage not (fully) checked, as a comparable key; ``None`` when checked."""
+    if c["status"] in ("checked", "not applicable"):
+        return None
+    return c["title"], c["status"], c["note"]
+
+
+def _gap_text(c: dict) -> str:
+    return f"{c['title'].lower()} {c['status']}: {_clip(c['note'], 140)}"
+
+
+def stages_text(a: AnalysisResult) -> str:
+    """``4 of 7 stages checked`` (``, 1 partly``); stages that do not apply are left out."""
+    full, partly, applicable = a.stages_checked()
+    return f"{full} of {applicable} stages checked" + (f", {partly} partly" if partly else "")
+
+
 def render(result: AuditResult, colour: bool = False, written: list[Path] | None = None) -> str:
     """The terminal report as one string."""
     paint = _Painter(colour)
@@ -60,13 +77,23 @@ def render(result: AuditResult, colour: bool = False, written: list[Path] | None
                + _plural(len(result.analyses), "analysis", "analyses"))
     out.append("")
     width = max((len(_clip(a.name, 40)) for a in result.analyses), default=8)
+    # Stages left unchecked in every analysis are said once, below the table.
+    gaps = [{_gap(c) for c in a.coverage} - {None} for a in result.analyses]
+    everywhere = set.intersection(*gaps) if len(gaps) > 1 else set()
     for a in result.analyses:
         word = VERDICT_WORDS[a.verdict]
         shape = f"{a.n_chains} x {a.n_draws} draws" if a.n_chains else "no draws"
+        checked = stages_text(a) if a.coverage else ""
         out.append(
             f"  {paint(word.ljust(6), a.verdict)}  {_clip(a.name, 40).ljust(width)}  "
-            f"{shape.ljust(18)}  {_counts_text(a.findings)}"
+            f"{shape.ljust(18)}  {checked.ljust(26)}  {_counts_text(a.findings)}"
         )
+        for c in a.coverage:
+            if _gap(c) and _gap(c) not in everywhere:
+                out.append(paint(f"          {_gap_text(c)}", "dim"))
+    if everywhere:
+        out.append(paint("  in every analysis: " + "; ".join(
+            _gap_text(c) for c in result.analyses[0].coverage if _gap(c) in everywhere), "dim"))
     by_stage: dict[str, list[Finding]] = defaultdict(list)
     for f in result.all_findings:
         by_stage[f.stage].append(f)

@@ -190,6 +190,173 @@ def main() -> None:
     const = dict(iid, flag=np.ones((CHAINS, DRAWS)))
     _case("constant", "bad", const, _healthy_stats(rng), '[[hit]]\nquantity = "flag"\n')
     _input_cases(rng)
+    _predictive_cases(np.random.default_rng(20261203))
+
+
+# --------------------------------------------------------------------------- predictive
+
+NORMAL_PROGRAM = """// Stream temperature readings at one gauge (invented scenario).
+data {
+  int<lower=0> N;
+  vector[N] y;
+}
+parameters {
+  real mu;
+}
+model {
+  mu ~ normal(0, 5);
+  y ~ normal(mu, 1);  // MARK
+}
+generated quantities {
+  vector[N] log_lik;
+  array[N] real y_rep;
+  for (n in 1:N) {
+    log_lik[n] = normal_lpdf(y[n] | mu, 1);
+    y_rep[n] = normal_rng(mu, 1);
+  }
+}
+"""
+COUNT_PROGRAM = """// Nest boxes occupied per transect (invented scenario).
+data {
+  int<lower=0> N;
+  array[N] int<lower=0> y;
+}
+parameters {
+  real alpha;
+}
+model {
+  alpha ~ normal(1, 1);
+  y ~ poisson_log(alpha);  // MARK
+}
+generated quantities {
+  vector[N] log_lik;
+  array[N] int y_rep;
+  for (n in 1:N) {
+    log_lik[n] = poisson_log_lpmf(y[n] | alpha);
+    y_rep[n] = poisson_log_rng(alpha);
+  }
+}
+"""
+PRED_CHAINS, PRED_DRAWS, PRED_N = 2, 100, 20
+
+
+def _stats(rng: np.random.Generator) -> dict:
+    return _healthy_stats(rng, PRED_CHAINS, PRED_DRAWS)
+
+
+def _normal_fit(rng: np.random.Generator, y: np.ndarray, sd: float = 1.0) -> dict:
+    """Exact posterior draws of mu (prior normal(0, 5), known sd 1) with log_lik and y_rep.
+
+    ``sd`` is the spread the replications are drawn with: 1 is the model's own
+    (well calibrated when the data have sd 1)."""
+    n = y.size
+    var = 1 / (1 / 25 + n)
+    mu = rng.normal(var * y.sum(), np.sqrt(var), (PRED_CHAINS, PRED_DRAWS))
+    log_lik = -0.5 * np.log(2 * np.pi) - 0.5 * (y[None, None, :] - mu[..., None]) ** 2
+    y_rep = rng.normal(mu[..., None], sd, (*mu.shape, n))
+    return {"mu": mu, "log_lik": log_lik, "y_rep": y_rep}
+
+
+def _project(rule: str, kind: str, program: str, data: dict, posterior: dict,
+             prior: dict | None, rng: np.random.Generator, extra_toml: str = "",
+             mark: bool = False) -> Path:
+    folder = RULES / rule.split(".")[0] / rule.split(".")[1] / "cases" / kind
+    if folder.exists():
+        shutil.rmtree(folder)
+    folder.mkdir(parents=True)
+    text = program.replace("// MARK", f"// expect: {rule}" if mark else "")
+    text = text.replace("  // expect", "  // expect").replace(";  \n", ";\n")
+    (folder / "case.stan").write_text(text)
+    (folder / "data.json").write_text(
+        "{" + ", ".join(f'"{k}": {v}' for k, v in data.items()) + "}\n")
+    write_run(folder, "fit", "case_model", posterior, _stats(rng))
+    toml = ('[[analysis]]\nname = "fit"\nmodel = "case.stan"\ndraws = ["fit-*.csv"]\n'
+            'data = "data.json"\n')
+    if prior is not None:
+        write_run(folder, "prior", "case_model", prior, _stats(rng))
+        toml += 'prior_draws = ["prior-*.csv"]\n'
+    (folder / "bayes-auditor.toml").write_text(toml + extra_toml)
+    return folder
+
+
+def _listed(y: np.ndarray, integer: bool = False) -> str:
+    return "[" + ", ".join(str(int(v)) if integer else f"{v:.4f}" for v in y) + "]"
+
+
+def _predictive_cases(rng: np.random.Generator) -> None:
+    """Cases of the prior and posterior predictive rules: a normal model of readings
+    and a Poisson model of counts, with draws made exactly from known posteriors."""
+    shape = (PRED_CHAINS, PRED_DRAWS)
+    y = rng.normal(0.3, 1.0, PRED_N)
+    data = {"N": PRED_N, "y": _listed(y)}
+    fit = _normal_fit(rng, y)
+    # A proper prior run: mu from its prior normal(0, 5), y_rep from the likelihood.
+    mu0 = rng.normal(0, 5, shape)
+    prior_ok = {"mu": mu0, "y_rep": rng.normal(mu0[..., None], 1.0, (*shape, PRED_N))}
+
+    # prior-predictive.missing: the same analysis with and without its prior run.
+    _project("prior-predictive.missing", "good", NORMAL_PROGRAM, data, fit, prior_ok, rng)
+    _project("prior-predictive.missing", "bad", NORMAL_PROGRAM, data, fit, None, rng, mark=True)
+
+    # prior-predictive.implausible: readings are known to lie in [-4, 4]; a prior
+    # normal(0, 50) on mu puts most prior predictive draws outside.
+    wide = rng.normal(0, 50, shape)
+    prior_wide = {"mu": wide, "y_rep": rng.normal(wide[..., None], 1.0, (*shape, PRED_N))}
+    rng_toml = "plausible_range = [-4.0, 4.0]\n"
+    narrow = rng.normal(0, 1, shape)
+    prior_narrow = {"mu": narrow,
+                    "y_rep": rng.normal(narrow[..., None], 1.0, (*shape, PRED_N))}
+    _project("prior-predictive.implausible", "good", NORMAL_PROGRAM, data, fit, prior_narrow,
+             rng, rng_toml)
+    _project("prior-predictive.implausible", "bad", NORMAL_PROGRAM, data, fit, prior_wide,
+             rng, rng_toml, mark=True)
+
+    # prior-predictive.runaway: a prior-only run of a parameter without a proper
+    # prior: a random walk with steps growing geometrically, as a flat-prior run drifts.
+    steps = rng.normal(0, 1, shape) * np.logspace(0, 14, PRED_DRAWS)[None, :]
+    drift = np.cumsum(steps, axis=1)
+    prior_drift = {"mu": drift, "y_rep": rng.normal(drift[..., None], 1.0, (*shape, PRED_N))}
+    _project("prior-predictive.runaway", "good", NORMAL_PROGRAM, data, fit, prior_ok, rng)
+    folder = _project("prior-predictive.runaway", "bad", NORMAL_PROGRAM, data, fit,
+                      prior_drift, rng)
+    (folder / "expect.toml").write_text('[[hit]]\nquantity = "mu"\n')
+
+    # posterior-predictive.missing: the fit without its y_rep column.
+    _project("posterior-predictive.missing", "good", NORMAL_PROGRAM, data, fit, None, rng)
+    no_rep = {k: v for k, v in fit.items() if k != "y_rep"}
+    _project("posterior-predictive.missing", "bad",
+             NORMAL_PROGRAM.replace("y_rep[n] = normal_rng(mu, 1);", "").replace(
+                 "array[N] real y_rep;", ""), data, no_rep, None, rng, mark=True)
+
+    # posterior-predictive.test-statistic: counts from a negative binomial (shape 1.5,
+    # mean 6: variance 30) fitted by a Poisson; the good case's counts are Poisson.
+    def count_fit(counts: np.ndarray) -> dict:
+        # Exact posterior of log rate under a flat-ish prior: Gamma(sum + 1, n) for the rate.
+        lam = rng.gamma(counts.sum() + 1, 1 / counts.size, shape)
+        alpha = np.log(lam)
+        log_lik = counts[None, None, :] * alpha[..., None] - lam[..., None] - np.array(
+            [np.sum(np.log(np.arange(1, int(c) + 1))) for c in counts])[None, None, :]
+        return {"alpha": alpha, "log_lik": log_lik,
+                "y_rep": rng.poisson(lam[..., None], (*shape, counts.size))}
+
+    poisson_counts = rng.poisson(6.0, PRED_N)
+    nb_counts = rng.negative_binomial(1.5, 1.5 / (1.5 + 6.0), PRED_N)
+    _project("posterior-predictive.test-statistic", "good", COUNT_PROGRAM,
+             {"N": PRED_N, "y": _listed(poisson_counts, True)}, count_fit(poisson_counts),
+             None, rng)
+    folder = _project("posterior-predictive.test-statistic", "bad", COUNT_PROGRAM,
+                      {"N": PRED_N, "y": _listed(nb_counts, True)}, count_fit(nb_counts),
+                      None, rng)
+    (folder / "expect.toml").write_text(
+        'exact = false\n[[hit]]\nquantity = "y"\npath = "case.stan"\nline = 11\n')
+
+    # posterior-predictive.loo-pit: readings with sd 3 under a model that assumes sd 1:
+    # predictive distributions far too narrow. The good case's readings have sd 1.
+    spread = rng.normal(0.3, 3.0, PRED_N)
+    _project("posterior-predictive.loo-pit", "good", NORMAL_PROGRAM, data, fit, None, rng)
+    _project("posterior-predictive.loo-pit", "bad", NORMAL_PROGRAM,
+             {"N": PRED_N, "y": _listed(spread)}, _normal_fit(rng, spread), None, rng,
+             mark=True)
 
 
 if __name__ == "__main__":

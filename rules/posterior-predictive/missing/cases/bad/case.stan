@@ -1,0 +1,20 @@
+// Stream temperature readings at one gauge (invented scenario).
+data {
+  int<lower=0> N;
+  vector[N] y;
+}
+parameters {
+  real mu;
+}
+model {
+  mu ~ normal(0, 5);
+  y ~ normal(mu, 1);  // expect: posterior-predictive.missing
+}
+generated quantities {
+  vector[N] log_lik;
+  
+  for (n in 1:N) {
+    log_lik[n] = normal_lpdf(y[n] | mu, 1);
+    
+  }
+}
