@@ -75,12 +75,17 @@ def _observed_unknown(analysis: Analysis) -> str:
     return "the observed variable is unknown"
 
 
+def _without_observed(analysis: Analysis) -> tuple[str, str]:
+    """State of a predictive stage when no observed variable is known."""
+    prog = analysis.program
+    if prog is not None and not prog.syntax_errors and not prog.likelihoods:
+        return NOT_APPLICABLE, "the model program has no likelihood statement"
+    return NOT_CHECKED, _observed_unknown(analysis)
+
+
 def _prior_predictive(analysis: Analysis) -> tuple[str, str]:
     if not analysis.pairings:
-        prog = analysis.program
-        if prog is not None and not prog.syntax_errors and not prog.likelihoods:
-            return NOT_APPLICABLE, "the model program has no likelihood statement"
-        return NOT_CHECKED, _observed_unknown(analysis)
+        return _without_observed(analysis)
     missing = [p.observed for p in analysis.pairings if p.prior_predictive is None]
     if len(missing) == len(analysis.pairings):
         return NOT_CHECKED, "no prior predictive draws"
@@ -107,10 +112,7 @@ def _posterior_predictive(analysis: Analysis) -> tuple[str, str]:
     from auditor.predictive_checks import observed_values
 
     if not analysis.pairings:
-        prog = analysis.program
-        if prog is not None and not prog.syntax_errors and not prog.likelihoods:
-            return NOT_APPLICABLE, "the model program has no likelihood statement"
-        return NOT_CHECKED, _observed_unknown(analysis)
+        return _without_observed(analysis)
     if analysis.group("posterior") is None:
         return NOT_CHECKED, "no draws"
     reasons = []
