@@ -132,6 +132,8 @@ def _posterior_predictive(analysis: Analysis) -> tuple[str, str]:
 
 
 def _comparison(analysis: Analysis) -> tuple[str, str]:
+    if not analysis.pairings:
+        return _without_observed(analysis)
     if not any(p.log_likelihood is not None for p in analysis.pairings):
         return NOT_CHECKED, "no pointwise log-likelihood"
     return NOT_CHECKED, "PSIS-LOO and model comparison are not yet part of this audit"

@@ -131,15 +131,24 @@ def _convergence(a: AnalysisResult) -> ChecklistItem:
 
 
 def _predictive(a: AnalysisResult, stage: str, group: str, topic: str) -> ChecklistItem:
-    groups = _groups(a)
     flags = _stage_flags(a, stage)
+    covered = next((c for c in a.coverage if c["stage"] == stage), None)
+    what = group.replace("_", " ")
+    if covered is not None and covered["status"] in ("checked", "partly checked"):
+        seen = f"{what} draws are in the files and were checked by this audit"
+        if covered["status"] == "partly checked":
+            seen += f" (partly: {covered['note']})"
+        return _item(topic, seen, "how the check was read and what it showed should be "
+                     "reported", flags)
+    if covered is not None and covered["status"] == "not applicable":
+        return _item(topic, f"does not apply: {covered['note']}", "", flags)
+    if covered is not None:
+        return _item(topic, "", f"not checked here ({covered['note']}); whether a check was "
+                     f"done {UNKNOWN}", flags)
+    groups = _groups(a)
     if groups is not None and group in groups:
-        seen = f"{group.replace('_', ' ')} draws are in the files"
-        missing = "how the check was read and what it showed should be reported"
-        return _item(topic, seen, missing, flags)
-    if groups is not None:
-        return _item(topic, "", f"no {group.replace('_', ' ')} draws in the files; whether a "
-                     f"check was done {UNKNOWN}", flags)
+        return _item(topic, f"{what} draws are in the files",
+                     "how the check was read and what it showed should be reported", flags)
     return _item(topic, "", f"whether this check was done {UNKNOWN}", flags)
 
 

@@ -11,7 +11,8 @@ from pathlib import Path
 from typing import TextIO
 
 from auditor.findings import STAGES, Finding
-from auditor.result import AnalysisResult, AuditResult
+from auditor.reporters.views import coverage_text
+from auditor.result import AuditResult
 
 _COLOURS = {"error": "31", "warning": "33", "note": "36", "fail": "31", "review": "33",
             "pass": "32", "dim": "2", "bold": "1"}
@@ -62,12 +63,6 @@ def _gap_text(c: dict) -> str:
     return f"{c['title'].lower()} {c['status']}: {_clip(c['note'], 140)}"
 
 
-def stages_text(a: AnalysisResult) -> str:
-    """``4 of 7 stages checked`` (``, 1 partly``); stages that do not apply are left out."""
-    full, partly, applicable = a.stages_checked()
-    return f"{full} of {applicable} stages checked" + (f", {partly} partly" if partly else "")
-
-
 def render(result: AuditResult, colour: bool = False, written: list[Path] | None = None) -> str:
     """The terminal report as one string."""
     paint = _Painter(colour)
@@ -83,7 +78,7 @@ def render(result: AuditResult, colour: bool = False, written: list[Path] | None
     for a in result.analyses:
         word = VERDICT_WORDS[a.verdict]
         shape = f"{a.n_chains} x {a.n_draws} draws" if a.n_chains else "no draws"
-        checked = stages_text(a) if a.coverage else ""
+        checked = coverage_text(a) if a.coverage else ""
         out.append(
             f"  {paint(word.ljust(6), a.verdict)}  {_clip(a.name, 40).ljust(width)}  "
             f"{shape.ljust(18)}  {checked.ljust(26)}  {_counts_text(a.findings)}"

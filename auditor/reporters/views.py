@@ -10,7 +10,7 @@ from __future__ import annotations
 
 import json
 import math
-from dataclasses import dataclass, field
+from dataclasses import dataclass, field, replace
 from typing import Any
 
 from markupsafe import Markup
@@ -174,6 +174,26 @@ class FigureView:
 
 
 @dataclass(frozen=True)
+class StageView:
+    """One workflow stage of the coverage record, for display."""
+
+    title: str
+    status: str
+    css: str
+    note: str
+
+
+@dataclass(frozen=True)
+class PairingView:
+    """An observed variable and where its companions were found."""
+
+    observed: str
+    posterior_predictive: str
+    prior_predictive: str
+    log_likelihood: str
+
+
+@dataclass(frozen=True)
 class AnalysisView:
     anchor: str
     name: str
@@ -192,6 +212,11 @@ class AnalysisView:
     figure_problems: tuple[str, ...]
     checklist: tuple[ChecklistItem, ...]
     checklist_counts: tuple[tuple[str, int], ...]
+    coverage: tuple[StageView, ...] = ()
+    coverage_text: str = ""
+    pairings: tuple[PairingView, ...] = ()
+    #: Stages not (fully) checked here but checked elsewhere: "title status (note)".
+    coverage_gaps: tuple[str, ...] = ()
 
 
 @dataclass(frozen=True)
@@ -223,6 +248,8 @@ class ReportView:
     settings: tuple[tuple[str, str], ...]
     checklist_source: str = CHECKLIST_SOURCE
     stage_order: tuple[str, ...] = field(default=STAGES)
+    #: Stages not (fully) checked in any analysis, said once: "title status (note)".
+    coverage_everywhere: tuple[str, ...] = ()
 
 
 def _counts(findings: list[Finding]) -> dict[str, int]:
@@ -267,6 +294,25 @@ def _size(n: int) -> str:
 
 def _variable(quantity: str) -> str:
     return quantity.split("[", 1)[0]
+
+
+#: CSS class of each coverage status.
+STAGE_CSS = {"checked": "cov-checked", "partly checked": "cov-partly",
+             "not checked": "cov-missing", "not applicable": "cov-na"}
+HOW = {"configured": "named in the configuration", "program": "found in the model program",
+       "group": "found in its DataTree group", "name": "found by its usual name"}
+
+
+def coverage_text(a: AnalysisResult) -> str:
+    """``5 of 7 stages checked`` (``, 1 partly``); stages that do not apply are left out."""
+    full, partly, applicable = a.stages_checked()
+    return f"{full} of {applicable} stages checked" + (f", {partly} partly" if partly else "")
+
+
+def _companion(entry: dict | None) -> str:
+    if not entry:
+        return DASH
+    return f"{entry['variable']} ({HOW.get(entry['how'], entry['how'])})"
 
 
 def _figures_for(f: Finding, figures: tuple[FigureView, ...],
@@ -432,7 +478,18 @@ class _Builder:
                 (status, n) for status in STATUS_ORDER
                 if (n := sum(1 for it in checklist if it.status == status))
             ),
+            coverage=tuple(StageView(c["title"], c["status"], STAGE_CSS.get(c["status"], ""),
+                                     c["note"]) for c in a.coverage),
+            coverage_text=coverage_text(a) if a.coverage else "",
+            pairings=tuple(PairingView(p["observed"], _companion(p["posterior_predictive"]),
+                                       _companion(p["prior_predictive"]),
+                                       _companion(p["log_likelihood"])) for p in a.pairings),
         )
+
+
+def _gaps(a: AnalysisResult) -> list[str]:
+    return [f"{c['title'].lower()} {c['status']} ({c['note']})" for c in a.coverage
+            if c["status"] in ("not checked", "partly checked")]
 
 
 def build_view(result: AuditResult, top: int = 10, figure_scale: float = 1.0) -> ReportView:
@@ -443,6 +500,10 @@ def build_view(result: AuditResult, top: int = 10, figure_scale: float = 1.0) ->
     """
     b = _Builder(result, figure_scale)
     analyses = tuple(b.analysis(a, i) for i, a in enumerate(result.analyses, start=1))
+    gaps = [_gaps(a) for a in result.analyses]
+    shared = [g for g in gaps[0] if all(g in other for other in gaps)] if len(gaps) > 1 else []
+    analyses = tuple(replace(av, coverage_gaps=tuple(g for g in own if g not in shared))
+                     for av, own in zip(analyses, gaps, strict=True))
     project_stages = b.stages(result.project_findings, "p", None)
     every = [f for g in project_stages for f in g.findings] + [
         f for av in analyses for g in av.stages for f in g.findings
@@ -472,4 +533,5 @@ def build_view(result: AuditResult, top: int = 10, figure_scale: float = 1.0) ->
         inputs=tuple(InputView(i.path, i.sha256, _size(i.size)) for i in result.inputs),
         libraries=tuple(sorted(result.libraries.items())),
         settings=settings_rows(result.config),
+        coverage_everywhere=tuple(shared),
     )
