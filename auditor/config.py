@@ -42,6 +42,7 @@ ANALYSIS_KEYS = frozenset(
         "log_lik",
         "predictive",
         "plausible_range",
+        "chosen",
     }
 )
 RULE_KEYS = frozenset({"enabled", "severity"})
@@ -113,6 +114,12 @@ def _variable(v: Any) -> str:
     return v
 
 
+def _flag(v: Any) -> bool:
+    if not isinstance(v, bool):
+        raise TypeError("true or false")
+    return v
+
+
 def _range(v: Any) -> tuple[float, float]:
     ok = (isinstance(v, list) and len(v) == 2 and all(_is_number(x) for x in v)
           and all(math.isfinite(x) for x in v) and v[0] < v[1])
@@ -157,6 +164,7 @@ ANALYSIS_TYPES: dict[str, Callable[[Any], Any]] = {
     "log_lik": _variable,
     "predictive": _variable,
     "plausible_range": _range,
+    "chosen": _flag,
 }
 assert set(ANALYSIS_TYPES) == ANALYSIS_KEYS
 
@@ -382,6 +390,7 @@ def _analysis_spec(
         log_lik=values.get("log_lik"),
         predictive=values.get("predictive"),
         problems=list(ctx.problems),
+        chosen=values.get("chosen", False),
     )
 
 

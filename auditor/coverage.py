@@ -131,12 +131,36 @@ def _posterior_predictive(analysis: Analysis) -> tuple[str, str]:
     return (PARTLY, "; ".join(reasons)) if reasons else (CHECKED, "")
 
 
+#: The comparison stage's note until the project pass settles it.
+LOO_PENDING = "PSIS-LOO could not be computed"
+
+
 def _comparison(analysis: Analysis) -> tuple[str, str]:
     if not analysis.pairings:
         return _without_observed(analysis)
     if not any(p.log_likelihood is not None for p in analysis.pairings):
         return NOT_CHECKED, "no pointwise log-likelihood"
-    return NOT_CHECKED, "PSIS-LOO and model comparison are not yet part of this audit"
+    # Settled by comparison_coverage once every analysis has been audited.
+    return NOT_CHECKED, LOO_PENDING
+
+
+def comparison_coverage(entry: dict[str, str], has_loo: bool, compared: bool,
+                        enabled: bool) -> dict[str, str]:
+    """The model comparison stage of one analysis after the project pass.
+
+    ``has_loo``: PSIS-LOO was computed for it; ``compared``: it is in a comparison
+    set; ``enabled``: some rule of the stage is enabled.
+    """
+    if entry["note"] != LOO_PENDING:
+        return entry  # no log-likelihood, no observed variable: the reason stands
+    if not enabled:
+        return {**entry, "note": "its rules are disabled in the configuration"}
+    if compared:
+        return {**entry, "status": CHECKED, "note": ""}
+    if has_loo:
+        return {**entry, "status": PARTLY,
+                "note": "PSIS-LOO checked; no other analysis of the same data to compare with"}
+    return entry
 
 
 def _sensitivity(analysis: Analysis) -> tuple[str, str]:

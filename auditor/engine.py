@@ -16,15 +16,17 @@ from typing import Any
 from auditor import TOOL_NAME, __version__
 from auditor.assemble import assemble
 from auditor.boundary import Boundary, Refused, default_max_bytes, display
+from auditor.comparison import ComparisonSet, comparison_sets
 from auditor.config import Config, check_rule_options, load_config
-from auditor.coverage import analysis_coverage
+from auditor.coverage import analysis_coverage, comparison_coverage
 from auditor.diagnostics import DiagnosticsTable
 from auditor.discovery import discover
 from auditor.findings import Finding, Location, Severity
+from auditor.loo import LooRecord, LooTable
 from auditor.model import Analysis, AnalysisSpec, InputProblem, Project
 from auditor.registry import all_rules, find_rule
 from auditor.result import AnalysisResult, AuditResult, InputFile
-from auditor.rules_api import RuleContext, RuleMeta
+from auditor.rules_api import ComparisonContext, RuleContext, RuleMeta
 
 #: Libraries whose versions go into the reproducibility record.
 LIBRARIES = ("arviz-base", "arviz-stats", "xarray", "numpy", "scipy", "lark", "jinja2")
@@ -87,17 +89,21 @@ def _fingerprint(path: Path, gate: Boundary) -> tuple[str, int] | None:
         return None
 
 
-def _input_files(project: Project, cfg: Config, gate: Boundary) -> list[InputFile]:
-    files: set[Path] = set()
+def _analysis_files(analysis: Analysis) -> set[Path]:
+    """The input files one analysis read (draws, data, program and its includes)."""
+    files: set[Path] = set(analysis.sources)
+    if analysis.spec is not None and analysis.spec.data is not None:
+        files.add(analysis.spec.data)
+    if analysis.program is not None:
+        files.add(Path(analysis.program.path))
+        files.update(Path(p) for p in analysis.program.includes)
+    return files
+
+
+def _input_files(files: set[Path], project: Project, cfg: Config,
+                 gate: Boundary) -> list[InputFile]:
     if cfg.source is not None:
-        files.add(cfg.source)
-    for a in project.analyses:
-        files.update(a.sources)
-        if a.spec is not None and a.spec.data is not None:
-            files.add(a.spec.data)
-        if a.program is not None:
-            files.add(Path(a.program.path))
-            files.update(Path(p) for p in a.program.includes)
+        files = files | {cfg.source}
     out = []
     for path in sorted(files, key=lambda p: project.relpath(p)):
         found = _fingerprint(path, gate)
@@ -129,7 +135,7 @@ def _rule_settings(rule: RuleMeta, cfg: Config) -> tuple[bool, Severity, dict[st
     return enabled, severity, thresholds
 
 
-def _failure(what: str, analysis: Analysis | None, project: Project,
+def _failure(what: str, analysis: Analysis | None, project: Project | None,
              error: Exception | str) -> Finding:
     """An ``inputs.rule-failed`` finding for a part of the audit that raised."""
     failed = find_rule("inputs.rule-failed")
@@ -139,14 +145,14 @@ def _failure(what: str, analysis: Analysis | None, project: Project,
         where = f" ({Path(tb[-1].filename).name}:{tb[-1].lineno})" if tb else ""
         error = f"{type(error).__name__}: {error}"
     loc = None
-    if analysis is not None and analysis.sources:
+    if analysis is not None and analysis.sources and project is not None:
         loc = Location(project.relpath(analysis.sources[0]))
     return Finding(
         rule_id="inputs.rule-failed",
         severity=failed.severity if failed else Severity.WARNING,
         stage="inputs",
         message=(
-            f"{what} could not finish on this analysis: {error}{where}; "
+            f"{what} could not finish{' on this analysis' if analysis else ''}: {error}{where}; "
             "its result is missing from this audit"
         ),
         evidence={"part": what, "error": error.split(":", 1)[0]},
@@ -196,9 +202,12 @@ def _priors(analysis: Analysis, project: Project) -> list[str]:
 
 
 def _audit_analysis(analysis: Analysis, project: Project, rules: list[RuleMeta],
-                    cfg: Config, gate: Boundary) -> AnalysisResult:
+                    cfg: Config, gate: Boundary) -> tuple[AnalysisResult, list[LooRecord]]:
+    """Run every enabled analysis-scope rule; return the compact result and the
+    compact PSIS-LOO records the project-level comparison needs."""
     one_based = analysis.settings.library == "CmdStan"
     table = DiagnosticsTable(analysis.group("posterior"), one_based=one_based)
+    loo = LooTable(analysis)
     findings: list[Finding] = []
     figures = []
     enabled_stages: set[str] = set()
@@ -207,8 +216,10 @@ def _audit_analysis(analysis: Analysis, project: Project, rules: list[RuleMeta],
         if not enabled or rule.check is None:
             continue
         enabled_stages.add(rule.stage)
+        if rule.scope != "analysis":
+            continue
         ctx = RuleContext(rule, analysis, project, thresholds, severity, table,
-                          options={"max_figures": cfg.max_figures})
+                          options={"max_figures": cfg.max_figures}, loo=loo)
         try:
             hits = list(rule.check(ctx) or [])
         except Exception as exc:  # a rule failing on odd data must not stop the audit
@@ -223,6 +234,13 @@ def _audit_analysis(analysis: Analysis, project: Project, rules: list[RuleMeta],
     rows = table.rows
     for error in table.errors:
         findings.append(_failure("diagnostics table", analysis, project, error))
+    try:
+        records = loo.records()
+    except Exception as exc:  # odd log-likelihood values must not stop the audit
+        records = []
+        findings.append(_failure("PSIS-LOO", analysis, project, exc))
+    for error in loo.errors:
+        findings.append(_failure("PSIS-LOO", analysis, project, error))
     findings.sort(key=Finding.sort_key)
     return AnalysisResult(
         name=analysis.name,
@@ -240,7 +258,20 @@ def _audit_analysis(analysis: Analysis, project: Project, rules: list[RuleMeta],
         priors=_priors(analysis, project),
         pairings=[p.as_dict() for p in analysis.pairings],
         coverage=[c.as_dict() for c in analysis_coverage(analysis, enabled_stages)],
-    )
+        loo=[r.as_dict() for r in records],
+    ), records
+
+
+def _cover_comparison(analyses: list[AnalysisResult], records: list[LooRecord],
+                      sets: list[ComparisonSet], rules: list[RuleMeta], cfg: Config) -> None:
+    """Fill the model comparison stage of each coverage record after the project pass."""
+    compared = {row.analysis for s in sets for row in s.rows}
+    with_loo = {r.analysis for r in records}
+    enabled = any(_rule_settings(r, cfg)[0] for r in rules
+                  if r.stage in ("loo", "comparison") and r.check is not None)
+    for a in analyses:
+        a.coverage = [comparison_coverage(c, a.name in with_loo, a.name in compared, enabled)
+                      if c["stage"] == "comparison" else c for c in a.coverage]
 
 
 def _problem_finding(problem: InputProblem, project: Project) -> Finding | None:
@@ -290,21 +321,49 @@ def _project_findings(project: Project, cfg: Config) -> list[Finding]:
     return out
 
 
+def analysis_specs(paths: list[Path], cfg: Config, root: Path,
+                   gate: Boundary) -> tuple[list[AnalysisSpec], list[InputProblem]]:
+    """The analyses named by ``paths`` under ``cfg`` (declared, else discovered), and
+    the input problems found outside any analysis."""
+    given_dir = len(paths) == 1 and paths[0].is_dir() and paths[0].suffix != ".zarr"
+    if cfg.analyses and given_dir:
+        return list(cfg.analyses), []
+    files = None if given_dir else [Path(os.path.abspath(p)) for p in paths]
+    return discover(root, files, gate)
+
+
 def build_project(paths: list[Path], cfg: Config, root: Path,
                   gate: Boundary | None = None) -> Project:
-    """Find and load the analyses named by ``paths`` under ``cfg``, through ``gate``."""
+    """Find and load every analysis at once (for tests and tools that want the
+    normalized analyses; the audit itself streams them, see :func:`run_audit`)."""
     gate = gate or Boundary(root)
-    project = Project(root=root)
-    given_dir = len(paths) == 1 and paths[0].is_dir() and paths[0].suffix != ".zarr"
-    specs: list[AnalysisSpec]
-    if cfg.analyses and given_dir:
-        specs = cfg.analyses
-    else:
-        files = None if given_dir else [Path(os.path.abspath(p)) for p in paths]
-        specs, project.problems = discover(root, files, gate)
-    for spec in specs:
-        project.analyses.append(assemble(spec, gate))
+    specs, problems = analysis_specs(paths, cfg, root, gate)
+    project = Project(root=root, problems=problems)
+    project.analyses = [assemble(spec, gate) for spec in specs]
     return project
+
+
+def _comparison_findings(sets: list[ComparisonSet], records: list[LooRecord],
+                         results: list[AnalysisResult], rules: list[RuleMeta],
+                         cfg: Config) -> list[Finding]:
+    """Run every enabled comparison-scope rule once per comparison set."""
+    by_name = {(r.analysis, r.key): r for r in records}
+    locations = {a.name: Location(a.sources[0]) if a.sources else None for a in results}
+    out: list[Finding] = []
+    for rule in rules:
+        enabled, severity, thresholds = _rule_settings(rule, cfg)
+        if not enabled or rule.check is None or rule.scope != "comparison":
+            continue
+        for comp in sets:
+            ctx = ComparisonContext(
+                rule, comp, {row.analysis: by_name[(row.analysis, comp.key)]
+                             for row in comp.rows}, thresholds, severity, locations)
+            try:
+                out.extend(rule.check(ctx) or [])
+            except Exception as exc:  # a rule failing on odd data must not stop the audit
+                out.append(_failure(f"rule {rule.id} on the comparison of {comp.label}",
+                                    None, None, exc))
+    return out
 
 
 def run_audit(paths: list[Path], config_path: Path | None = None,
@@ -333,16 +392,32 @@ def run_audit(paths: list[Path], config_path: Path | None = None,
     cfg.only_rules = only_rules
     rules = all_rules()
     check_rule_options(cfg, rules)
-    project = build_project(paths, cfg, root, gate)
-    if not project.analyses:
+    specs, problems = analysis_specs(paths, cfg, root, gate)
+    if not specs:
         raise NothingToAudit(
             f"{root}: no analyses found (no CmdStan CSV, .nc or .zarr draws, no Stan program, "
             "and no [[analysis]] in a configuration file)"
         )
+    project = Project(root=root, problems=problems)
+    # First pass, one analysis at a time: load, audit, keep the compact result,
+    # release the draws, so memory is bounded by the largest analysis.
+    analyses: list[AnalysisResult] = []
+    records: list[LooRecord] = []
+    files: set[Path] = set()
+    for spec in specs:
+        analysis = assemble(spec, gate)
+        result, loo_records = _audit_analysis(analysis, project, rules, cfg, gate)
+        analyses.append(result)
+        records.extend(loo_records)
+        files |= _analysis_files(analysis)
+        del analysis
+    # Second pass, on compact results only: comparison across analyses.
+    sets = comparison_sets(records)
+    _cover_comparison(analyses, records, sets, rules, cfg)
     project.findings = _project_findings(project, cfg)
+    project.findings += _comparison_findings(sets, records, analyses, rules, cfg)
     if only_rules is not None:
         project.findings = [f for f in project.findings if f.rule_id in only_rules]
-    analyses = [_audit_analysis(a, project, rules, cfg, gate) for a in project.analyses]
     return AuditResult(
         tool=TOOL_NAME,
         version=__version__,
@@ -351,7 +426,8 @@ def run_audit(paths: list[Path], config_path: Path | None = None,
         project_findings=project.findings,
         gate=cfg.gate,
         rules=rules,
-        inputs=_input_files(project, cfg, gate),
+        inputs=_input_files(files, project, cfg, gate),
+        comparisons=[c.as_dict() for c in sets],
         config=cfg.effective(),
         libraries=_libraries(),
     )

@@ -101,6 +101,8 @@ class AnalysisSpec:
     predictive: str | None = None
     #: Problems seen while reading the declaration (paths refused by the boundary).
     problems: list[InputProblem] = field(default_factory=list)
+    #: Marked ``chosen = true`` in the configuration: the model the analyst reports.
+    chosen: bool = False
 
 
 @dataclass

@@ -82,7 +82,15 @@ def load_rule(folder: Path) -> RuleMeta:
         aliases=list(meta.get("aliases", [])),
         check=check,
         figures=figures,
+        scope=_scope(meta, meta_path),
     )
+
+
+def _scope(meta: dict, meta_path: Path) -> str:
+    scope = meta.get("scope", "analysis")
+    if scope not in ("analysis", "comparison"):
+        raise RuleDefinitionError(f"{meta_path}: scope must be 'analysis' or 'comparison'")
+    return scope
 
 
 @lru_cache(maxsize=4)

@@ -65,6 +65,9 @@ class AnalysisResult:
     #: The workflow stages checked and not checked (``StageCoverage.as_dict()`` of
     #: :mod:`auditor.coverage`).
     coverage: list[dict[str, str]] = field(default_factory=list)
+    #: PSIS-LOO and WAIC per observed variable (``LooRecord.as_dict()`` of
+    #: :mod:`auditor.loo`).
+    loo: list[dict[str, Any]] = field(default_factory=list)
 
     def stages_checked(self) -> tuple[int, int, int]:
         """(stages checked, stages partly checked, stages that apply) of the coverage."""
@@ -115,6 +118,9 @@ class AuditResult:
     config: dict[str, Any] = field(default_factory=dict)
     libraries: dict[str, str] = field(default_factory=dict)
     caution: str = CAUTION
+    #: Comparison sets of analyses of the same data (``ComparisonSet.as_dict()`` of
+    #: :mod:`auditor.comparison`), best model first.
+    comparisons: list[dict[str, Any]] = field(default_factory=list)
 
     @property
     def all_findings(self) -> list[Finding]:

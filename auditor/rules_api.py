@@ -16,7 +16,9 @@ from typing import TYPE_CHECKING, Any
 from auditor.findings import Finding, Location, Severity
 
 if TYPE_CHECKING:
+    from auditor.comparison import ComparisonSet
     from auditor.diagnostics import DiagnosticsTable
+    from auditor.loo import LooRecord, LooTable
     from auditor.model import Analysis, Project
     from auditor.result import Figure
 
@@ -36,8 +38,12 @@ class RuleMeta:
     thresholds: dict[str, Any]
     folder: Path
     aliases: list[str] = field(default_factory=list)
-    check: Callable[[RuleContext], Iterable[Finding]] | None = None
+    check: Callable[[Any], Iterable[Finding]] | None = None
     figures: Callable[[RuleContext, list[Finding]], list[Figure]] | None = None
+    #: ``analysis`` (the check runs on each analysis, with a :class:`RuleContext`)
+    #: or ``comparison`` (once per comparison set, after every analysis, with a
+    #: :class:`ComparisonContext`); from ``scope`` in ``rule.toml``.
+    scope: str = "analysis"
 
 
 @dataclass
@@ -51,6 +57,8 @@ class RuleContext:
     severity: Severity
     diagnostics: DiagnosticsTable
     options: dict[str, Any] = field(default_factory=dict)
+    #: PSIS-LOO of the analysis's observed variables, computed on first use.
+    loo: LooTable | None = None
 
     def finding(
         self,
@@ -101,3 +109,35 @@ class RuleContext:
         if prog is None:
             return None
         return Location(self.project.relpath(prog.path), line, column)
+
+
+@dataclass
+class ComparisonContext:
+    """What a comparison-scope check sees: one comparison set of compact records.
+
+    ``comparison`` has the table (best first); ``records`` the analyses' compact
+    PSIS-LOO records by analysis name; ``locations`` where each analysis's
+    findings point (its configuration entry or first draws file).
+    """
+
+    rule: RuleMeta
+    comparison: ComparisonSet
+    records: dict[str, LooRecord]
+    thresholds: dict[str, Any]
+    severity: Severity
+    locations: dict[str, Location | None] = field(default_factory=dict)
+
+    def finding(self, message: str, evidence: dict[str, Any] | None = None, *,
+                analysis: str | None = None, severity: Severity | None = None,
+                fix: str | None = None) -> Finding:
+        """A project-level finding of this rule, about ``analysis`` when given."""
+        return Finding(
+            rule_id=self.rule.id,
+            severity=severity or self.severity,
+            stage=self.rule.stage,
+            message=message,
+            evidence=evidence or {},
+            fix=fix or self.rule.fix,
+            location=self.locations.get(analysis) if analysis else None,
+            analysis=analysis,
+        )

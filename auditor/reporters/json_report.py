@@ -6,8 +6,11 @@
    settings, diagnostics and findings; project-level findings; inputs with SHA-256.
 2. Per analysis: ``pairings`` (each observed variable with its replicated draws,
    prior predictive draws and log-likelihood, and how each was found:
-   configured, program, group or name) and ``coverage`` (every workflow stage:
-   checked, partly checked, not checked with the missing input, not applicable).
+   configured, program, group or name), ``coverage`` (every workflow stage:
+   checked, partly checked, not checked with the missing input, not applicable)
+   and ``loo`` (PSIS-LOO and WAIC per observed variable); at the top level
+   ``comparisons`` (analyses of the same data: elpd_loo, SE, difference to the
+   best with its paired SE, p_loo, stacking weights).
 """
 
 from __future__ import annotations
@@ -71,6 +74,7 @@ def to_dict(result: AuditResult) -> dict[str, Any]:
         "caution": result.caution,
         "project_findings": [finding_dict(f) for f in sorted(result.project_findings,
                                                               key=Finding.sort_key)],
+        "comparisons": json_safe(result.comparisons),
         "analyses": [
             {
                 "name": a.name,
@@ -82,6 +86,7 @@ def to_dict(result: AuditResult) -> dict[str, Any]:
                 "settings": json_safe(a.settings),
                 "coverage": json_safe(a.coverage),
                 "pairings": json_safe(a.pairings),
+                "loo": json_safe(a.loo),
                 "diagnostics": json_safe(a.diagnostics),
                 "findings": [finding_dict(f) for f in a.findings],
             }

@@ -156,6 +156,8 @@ def build(result: AuditResult) -> dict[str, Any]:
             "caution": result.caution,
             "libraries": dict(sorted(result.libraries.items())),
             "settings": json_safe(result.config),
+            "comparisons": json_safe(result.comparisons),
+            "coverage": {a.name: json_safe(a.coverage) for a in result.analyses},
         },
     }
     return {"$schema": SCHEMA_URI, "version": SARIF_VERSION, "runs": [run]}

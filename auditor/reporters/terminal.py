@@ -89,6 +89,17 @@ def render(result: AuditResult, colour: bool = False, written: list[Path] | None
     if everywhere:
         out.append(paint("  in every analysis: " + "; ".join(
             _gap_text(c) for c in result.analyses[0].coverage if _gap(c) in everywhere), "dim"))
+    for comp in result.comparisons:
+        out.append("")
+        out.append(paint(f"model comparison: {_clip(comp['data'], 80)} "
+                         f"({comp['observations']} observations), best first", "bold"))
+        out.append("  analysis".ljust(width + 4)
+                   + "  elpd_loo      SE    diff  SE diff  p_loo  weight")
+        for r in comp["models"]:
+            name = _clip(r["analysis"], 40) + (" *" if r.get("chosen") else "")
+            out.append(f"  {name.ljust(width + 2)}  {r['elpd_loo']:8.1f} {r['se']:7.1f} "
+                       f"{r['elpd_diff']:7.1f} {r['diff_se']:8.1f} {r['p_loo']:6.1f} "
+                       f"{r['stacking_weight']:7.2f}")
     by_stage: dict[str, list[Finding]] = defaultdict(list)
     for f in result.all_findings:
         by_stage[f.stage].append(f)

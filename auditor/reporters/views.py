@@ -194,6 +194,31 @@ class PairingView:
 
 
 @dataclass(frozen=True)
+class ComparisonRowView:
+    """One model of a comparison table, formatted."""
+
+    analysis: str
+    elpd_loo: str
+    se: str
+    elpd_diff: str
+    diff_se: str
+    p_loo: str
+    weight: str
+    chosen: bool
+    note: str
+
+
+@dataclass(frozen=True)
+class ComparisonView:
+    """A comparison set: the data it is about and its table, best model first."""
+
+    data: str
+    observations: int
+    rows: tuple[ComparisonRowView, ...]
+    waic_caveat: str
+
+
+@dataclass(frozen=True)
 class AnalysisView:
     anchor: str
     name: str
@@ -250,6 +275,7 @@ class ReportView:
     stage_order: tuple[str, ...] = field(default=STAGES)
     #: Stages not (fully) checked in any analysis, said once: "title status (note)".
     coverage_everywhere: tuple[str, ...] = ()
+    comparisons: tuple[ComparisonView, ...] = ()
 
 
 def _counts(findings: list[Finding]) -> dict[str, int]:
@@ -487,6 +513,35 @@ class _Builder:
         )
 
 
+def comparison_views(result: AuditResult) -> tuple[ComparisonView, ...]:
+    """The comparison tables, formatted; WAIC only beside LOO, with its caveat."""
+    loo = {(a.name, rec["observed"]): rec for a in result.analyses for rec in a.loo}
+    out = []
+    for comp in result.comparisons:
+        rows, shaky = [], []
+        for r in comp["models"]:
+            rec = loo.get((r["analysis"], comp["observed"]), {})
+            notes = []
+            if r.get("high_k"):
+                notes.append(f"{r['high_k']} high Pareto k")
+            if rec.get("high_p_waic"):
+                shaky.append(r["analysis"])
+            if rec.get("elpd_waic") is not None:
+                notes.append(f"WAIC {rec['elpd_waic']:.1f}")
+            rows.append(ComparisonRowView(
+                analysis=r["analysis"], elpd_loo=f"{r['elpd_loo']:.1f}", se=f"{r['se']:.1f}",
+                elpd_diff=f"{r['elpd_diff']:.1f}", diff_se=f"{r['diff_se']:.1f}",
+                p_loo=f"{r['p_loo']:.1f}", weight=f"{r['stacking_weight']:.2f}",
+                chosen=bool(r.get("chosen")), note="; ".join(notes)))
+        caveat = ""
+        if shaky:
+            caveat = (f"WAIC is shown for reference only: {', '.join(shaky)} "
+                      f"{'has' if len(shaky) == 1 else 'have'} observations with p_waic above "
+                      "0.4, where WAIC is unreliable; rely on PSIS-LOO.")
+        out.append(ComparisonView(comp["data"], int(comp["observations"]), tuple(rows), caveat))
+    return tuple(out)
+
+
 def _gaps(a: AnalysisResult) -> list[str]:
     return [f"{c['title'].lower()} {c['status']} ({c['note']})" for c in a.coverage
             if c["status"] in ("not checked", "partly checked")]
@@ -534,4 +589,5 @@ def build_view(result: AuditResult, top: int = 10, figure_scale: float = 1.0) ->
         libraries=tuple(sorted(result.libraries.items())),
         settings=settings_rows(result.config),
         coverage_everywhere=tuple(shared),
+        comparisons=comparison_views(result),
     )

@@ -191,6 +191,7 @@ def main() -> None:
     _case("constant", "bad", const, _healthy_stats(rng), '[[hit]]\nquantity = "flag"\n')
     _input_cases(rng)
     _predictive_cases(np.random.default_rng(20261203))
+    _comparison_cases(np.random.default_rng(20261204))
 
 
 # --------------------------------------------------------------------------- predictive
@@ -357,6 +358,91 @@ def _predictive_cases(rng: np.random.Generator) -> None:
     _project("posterior-predictive.loo-pit", "bad", NORMAL_PROGRAM,
              {"N": PRED_N, "y": _listed(spread)}, _normal_fit(rng, spread), None, rng,
              mark=True)
+
+
+
+# --------------------------------------------------------------------------- comparison
+
+
+def _models_project(rule: str, kind: str, data: dict, fits: dict[str, dict],
+                    rng: np.random.Generator, chosen: str | None = None,
+                    program: str = NORMAL_PROGRAM) -> Path:
+    """A project of several analyses of one data file (one run per analysis)."""
+    stage, name = rule.split(".")
+    folder = RULES / stage / name / "cases" / kind
+    if folder.exists():
+        shutil.rmtree(folder)
+    folder.mkdir(parents=True)
+    (folder / "case.stan").write_text(program.replace("  // MARK", ""))
+    (folder / "data.json").write_text(
+        "{" + ", ".join(f'"{k}": {v}' for k, v in data.items()) + "}\n")
+    toml = ""
+    for model, posterior in fits.items():
+        write_run(folder, model, "case_model", posterior, _stats(rng))
+        toml += (f'[[analysis]]\nname = "{model}"\nmodel = "case.stan"\n'
+                 f'draws = ["{model}-*.csv"]\ndata = "data.json"\n'
+                 + ("chosen = true\n" if model == chosen else ""))
+    (folder / "bayes-auditor.toml").write_text(toml)
+    return folder
+
+
+def _comparison_cases(rng: np.random.Generator) -> None:
+    """Cases of the PSIS-LOO and comparison rules: exact posterior draws of the
+    normal model of readings (tests/tools above), fitted to data of known shape."""
+    y = rng.normal(0.3, 1.0, PRED_N)
+    data = {"N": PRED_N, "y": _listed(y)}
+    fit = _normal_fit(rng, y)
+
+    # comparison.loo-missing: the fit without its log_lik column (and program line).
+    _project("comparison.loo-missing", "good", NORMAL_PROGRAM, data, fit, None, rng)
+    no_ll = {k: v for k, v in fit.items() if k != "log_lik"}
+    _project("comparison.loo-missing", "bad",
+             NORMAL_PROGRAM.replace("log_lik[n] = normal_lpdf(y[n] | mu, 1);", "").replace(
+                 "vector[N] log_lik;", ""), data, no_ll, None, rng, mark=True)
+
+    # comparison.pareto-k and comparison.p-loo: two gross outliers among 20 readings
+    # under a normal likelihood with sd 1; leaving either out moves the posterior far,
+    # so its importance weights have a heavy tail (high k), and the in-sample fit
+    # gains far more than one parameter's worth (p_loo > 1 = p).
+    wild = y.copy()
+    wild[[3, 11]] = [9.0, -8.0]
+    wild_data = {"N": PRED_N, "y": _listed(wild)}
+    for rule in ("comparison.pareto-k", "comparison.p-loo"):
+        _project(rule, "good", NORMAL_PROGRAM, data, fit, None, rng)
+        _project(rule, "bad", NORMAL_PROGRAM, wild_data, _normal_fit(rng, wild), None, rng,
+                 mark=True)
+
+    # Comparison sets. "twin" is a second fit of the same model: LOO cannot tell the
+    # two apart. "wide" assumes sd 0.3 for readings of sd 1: clearly worse.
+    twin = _normal_fit(rng, y)
+    wide = _normal_fit_sd(rng, y, 0.3)
+    note = '[[hit]]\nseverity = "note"\n'
+    _models_project("comparison.difference-small", "good", data,
+                    {"fit": fit, "wide": wide}, rng)
+    folder = _models_project("comparison.difference-small", "bad", data,
+                             {"fit": fit, "twin": twin}, rng)
+    (folder / "expect.toml").write_text(note)
+    _models_project("comparison.chosen-worse", "good", data, {"fit": fit, "wide": wide}, rng,
+                    chosen="fit")
+    folder = _models_project("comparison.chosen-worse", "bad", data,
+                             {"fit": fit, "wide": wide}, rng, chosen="wide")
+    (folder / "expect.toml").write_text('[[hit]]\npath = "wide-1.csv"\n')
+    _models_project("comparison.not-chosen", "good", data, {"fit": fit, "wide": wide}, rng,
+                    chosen="fit")
+    folder = _models_project("comparison.not-chosen", "bad", data, {"fit": fit, "wide": wide},
+                             rng)
+    (folder / "expect.toml").write_text(note)
+
+
+def _normal_fit_sd(rng: np.random.Generator, y: np.ndarray, sd: float) -> dict:
+    """Exact posterior draws of mu under a normal likelihood with known ``sd``."""
+    n = y.size
+    var = 1 / (1 / 25 + n / sd**2)
+    mu = rng.normal(var * y.sum() / sd**2, np.sqrt(var), (PRED_CHAINS, PRED_DRAWS))
+    log_lik = (-0.5 * np.log(2 * np.pi * sd**2)
+               - 0.5 * ((y[None, None, :] - mu[..., None]) / sd) ** 2)
+    y_rep = rng.normal(mu[..., None], sd, (*mu.shape, n))
+    return {"mu": mu, "log_lik": log_lik, "y_rep": y_rep}
 
 
 if __name__ == "__main__":
