@@ -181,7 +181,8 @@ def prior_predictive_range(
     has_range = (low is not None and high is not None and math.isfinite(low)
                  and math.isfinite(high) and low <= high)
     tail = (1 - CENTRAL) / 2
-    q_lo, q_hi = (float(v) for v in np.quantile(finite, [tail, 1 - tail]))
+    with np.errstate(over="ignore", invalid="ignore"):  # draws near the largest float
+        q_lo, q_hi = (float(v) for v in np.quantile(finite, [tail, 1 - tail]))
     lo, hi = q_lo, q_hi
     if has_range:
         lo, hi = min(lo, low), max(hi, high)
