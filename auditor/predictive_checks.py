@@ -69,6 +69,17 @@ def draws_of(analysis: Analysis, source: Source | None, group: str) -> np.ndarra
     return arr.reshape(arr.shape[0] * arr.shape[1], -1)
 
 
+def share_in_range(values: np.ndarray, low: float, high: float) -> float:
+    """Share of ``values`` in [``low``, ``high``]; NaN and infinite values count as outside.
+
+    NaN for no values. The prior predictive rule and its figure both use it.
+    """
+    flat = np.asarray(values, dtype=float).reshape(-1)
+    if flat.size == 0:
+        return float("nan")
+    return float(np.mean((flat >= low) & (flat <= high)))
+
+
 # --------------------------------------------------------------------------- kind
 
 

@@ -5,7 +5,7 @@ from __future__ import annotations
 import numpy as np
 
 from auditor.findings import Severity
-from auditor.predictive_checks import draws_of, observed_values, outcome_kind
+from auditor.predictive_checks import draws_of, observed_values, outcome_kind, share_in_range
 from auditor.rulekit import likelihood_of, observed_location, observed_support
 
 
@@ -29,7 +29,7 @@ def check(ctx):
         where = observed_location(ctx, p.observed)
         if declared is not None:
             low, high = declared
-            inside = _share((flat >= low) & (flat <= high))
+            inside = share_in_range(flat, low, high)
             if inside > float(ctx.thresholds["min_share_inside"]):
                 continue
             yield ctx.finding(
