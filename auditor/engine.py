@@ -345,10 +345,11 @@ def build_project(paths: list[Path], cfg: Config, root: Path,
 
 def _comparison_findings(sets: list[ComparisonSet], records: list[LooRecord],
                          results: list[AnalysisResult], rules: list[RuleMeta],
-                         cfg: Config) -> list[Finding]:
+                         cfg: Config, project: Project) -> list[Finding]:
     """Run every enabled comparison-scope rule once per comparison set."""
     by_name = {(r.analysis, r.key): r for r in records}
     locations = {a.name: Location(a.sources[0]) if a.sources else None for a in results}
+    config_location = Location(project.relpath(cfg.source)) if cfg.source else None
     out: list[Finding] = []
     for rule in rules:
         enabled, severity, thresholds = _rule_settings(rule, cfg)
@@ -357,7 +358,8 @@ def _comparison_findings(sets: list[ComparisonSet], records: list[LooRecord],
         for comp in sets:
             ctx = ComparisonContext(
                 rule, comp, {row.analysis: by_name[(row.analysis, comp.key)]
-                             for row in comp.rows}, thresholds, severity, locations)
+                             for row in comp.rows}, thresholds, severity, locations,
+                config_location or locations.get(comp.rows[0].analysis))
             try:
                 out.extend(rule.check(ctx) or [])
             except Exception as exc:  # a rule failing on odd data must not stop the audit
@@ -415,7 +417,7 @@ def run_audit(paths: list[Path], config_path: Path | None = None,
     sets = comparison_sets(records)
     _cover_comparison(analyses, records, sets, rules, cfg)
     project.findings = _project_findings(project, cfg)
-    project.findings += _comparison_findings(sets, records, analyses, rules, cfg)
+    project.findings += _comparison_findings(sets, records, analyses, rules, cfg, project)
     if only_rules is not None:
         project.findings = [f for f in project.findings if f.rule_id in only_rules]
     return AuditResult(

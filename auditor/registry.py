@@ -55,6 +55,7 @@ def load_rule(folder: Path) -> RuleMeta:
         raise RuleDefinitionError(f"{meta_path}: unknown stage {meta['stage']!r}")
     module_name = "auditor_rule_" + expected_id.replace(".", "_").replace("-", "_")
     check = None
+    check_mod = None
     if meta.get("emitted_by") == "engine":
         # The engine itself raises these findings (configuration problems, a rule
         # that crashed); the folder holds their metadata and cases only.
@@ -83,6 +84,7 @@ def load_rule(folder: Path) -> RuleMeta:
         check=check,
         figures=figures,
         scope=_scope(meta, meta_path),
+        module=check_mod,
     )
 
 

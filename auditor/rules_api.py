@@ -44,6 +44,8 @@ class RuleMeta:
     #: or ``comparison`` (once per comparison set, after every analysis, with a
     #: :class:`ComparisonContext`); from ``scope`` in ``rule.toml``.
     scope: str = "analysis"
+    #: The loaded ``check.py`` (so a rule's ``figures.py`` can reuse its helpers).
+    module: Any = None
 
 
 @dataclass
@@ -117,7 +119,9 @@ class ComparisonContext:
 
     ``comparison`` has the table (best first); ``records`` the analyses' compact
     PSIS-LOO records by analysis name; ``locations`` where each analysis's
-    findings point (its configuration entry or first draws file).
+    findings point (its first draws file); ``default_location`` where findings
+    about the set as a whole point (the configuration file, else the first
+    analysis's draws).
     """
 
     rule: RuleMeta
@@ -126,6 +130,7 @@ class ComparisonContext:
     thresholds: dict[str, Any]
     severity: Severity
     locations: dict[str, Location | None] = field(default_factory=dict)
+    default_location: Location | None = None
 
     def finding(self, message: str, evidence: dict[str, Any] | None = None, *,
                 analysis: str | None = None, severity: Severity | None = None,
@@ -138,6 +143,7 @@ class ComparisonContext:
             message=message,
             evidence=evidence or {},
             fix=fix or self.rule.fix,
-            location=self.locations.get(analysis) if analysis else None,
+            location=(self.locations.get(analysis) if analysis else None)
+            or self.default_location,
             analysis=analysis,
         )

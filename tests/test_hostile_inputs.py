@@ -198,6 +198,8 @@ CONFIG_TYPES = [
      "'plausible_range' must be [low, high]"),
     ('[[analysis]]\nname = "a"\ndraws = "fits/*.csv"\nplausible_range = [0, inf]',
      "'plausible_range' must be [low, high]"),
+    ('[[analysis]]\nname = "a"\ndraws = "fits/*.csv"\nchosen = "yes"',
+     "'chosen' must be true or false"),
 ]
 
 

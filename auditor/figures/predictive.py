@@ -566,7 +566,7 @@ def figure_limit(ctx: RuleContext) -> int:
 def check_helper(ctx: RuleContext, name: str) -> Callable[..., Any]:
     """The function ``name`` of the rule's own ``check.py`` (as the registry loaded it), so
     a figure gets its numbers from the very generator its findings come from."""
-    fn = getattr(ctx.rule.check, "__globals__", {}).get(name)
+    fn = getattr(ctx.rule.module, name, None)
     if not callable(fn):
         raise LookupError(f"{ctx.rule.id}: check.py has no {name}()")
     return fn

@@ -431,7 +431,7 @@ def _comparison_cases(rng: np.random.Generator) -> None:
                     chosen="fit")
     folder = _models_project("comparison.not-chosen", "bad", data, {"fit": fit, "wide": wide},
                              rng)
-    (folder / "expect.toml").write_text(note)
+    (folder / "expect.toml").write_text('[[hit]]\npath = "bayes-auditor.toml"\n')
 
 
 def _normal_fit_sd(rng: np.random.Generator, y: np.ndarray, sd: float) -> dict:
