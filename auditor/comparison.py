@@ -55,11 +55,15 @@ class ComparisonSet:
     observed: str
     rows: tuple[ComparisonRow, ...]
     n_obs: int
+    #: Analyses of the same data without PSIS-LOO (no pointwise log-likelihood).
+    unscored: tuple[str, ...] = ()
+    #: Whether one of the unscored analyses is marked chosen.
+    unscored_chosen: bool = False
 
     def as_dict(self) -> dict[str, Any]:
         """JSON-safe record."""
         return {"data": self.label, "observed": self.observed, "observations": self.n_obs,
-                "models": [r.as_dict() for r in self.rows]}
+                "models": [r.as_dict() for r in self.rows], "unscored": list(self.unscored)}
 
 
 def stacking_weights(elpd_i: np.ndarray) -> np.ndarray:
@@ -92,17 +96,33 @@ def stacking_weights(elpd_i: np.ndarray) -> np.ndarray:
     return w / w.sum()
 
 
-def comparison_sets(records: list[LooRecord]) -> list[ComparisonSet]:
+def comparison_sets(records: list[LooRecord],
+                    unscored: list[tuple[str, str, str, str, bool]] = ()
+                    ) -> list[ComparisonSet]:
     """The project's comparison sets (two or more analyses of the same data), in a
-    fixed order (by data label)."""
+    fixed order (by data label).
+
+    ``unscored`` lists ``(analysis, observed, key, label, chosen)`` of analyses of
+    observed data without PSIS-LOO; they count as models of their data but get no row.
+    """
     groups: dict[str, list[LooRecord]] = defaultdict(list)
     for r in records:
         groups[r.key].append(r)
+    others: dict[str, list[tuple[str, str, str, str, bool]]] = defaultdict(list)
+    for u in unscored:
+        others[u[2]].append(u)
     out = []
-    for key, members in groups.items():
-        names = {m.analysis for m in members}
+    for key in sorted(set(groups) | set(others)):
+        members = groups.get(key, [])
+        missing = tuple(sorted({u[0] for u in others.get(key, [])}))
+        missing_chosen = any(u[4] for u in others.get(key, []))
+        names = {m.analysis for m in members} | set(missing)
         sizes = {m.elpd_i.size for m in members}
-        if len(names) < 2 or len(sizes) != 1:
+        if len(names) < 2 or len(sizes) > 1:
+            continue
+        if not members:
+            first = others[key][0]
+            out.append(ComparisonSet(key, first[3], first[1], (), 0, missing, missing_chosen))
             continue
         members = sorted(members, key=lambda m: (-m.elpd_loo, m.analysis))
         pointwise = np.vstack([m.elpd_i for m in members])
@@ -116,5 +136,5 @@ def comparison_sets(records: list[LooRecord]) -> list[ComparisonSet]:
             rows.append(ComparisonRow(m.analysis, m.elpd_loo, m.se, float(diff.sum()),
                                       diff_se, m.p_loo, float(w), m.chosen, m.n_high_k))
         out.append(ComparisonSet(key, members[0].data_label, members[0].observed,
-                                 tuple(rows), n))
+                                 tuple(rows), n, missing, missing_chosen))
     return sorted(out, key=lambda s: (s.label, s.key))

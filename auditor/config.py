@@ -149,6 +149,8 @@ TOP_TYPES: dict[str, Callable[[Any], Any]] = {
     "max_table_rows": _count,
     "page_size": _one_of(PAGE_SIZES),
     "max_input_share": _share,
+    "policy": _text,
+    "accepted": _text,
     "rules": _table,
     "analysis": _tables,
 }
@@ -201,6 +203,11 @@ class Config:
     max_table_rows: int = 1000
     page_size: str = "A4"
     max_input_share: float = DEFAULT_MAX_SHARE
+    #: The policy: a built-in name or a path (see :mod:`auditor.gate.policy`).
+    policy: str = "everyday"
+    #: The accepted-findings file (see :mod:`auditor.gate.accepted`); ``None``: the
+    #: default file when it exists.
+    accepted: str | None = None
     rules: dict[str, dict[str, Any]] = field(default_factory=dict)
     analyses: list[AnalysisSpec] = field(default_factory=list)
     source: Path | None = None
@@ -208,6 +215,13 @@ class Config:
     only_rules: set[str] | None = None
     #: Where ``out`` came from (``None``: the default or the command line).
     out_origin: str | None = None
+    #: Where ``policy`` came from: the folder its relative path is read from, and
+    #: whether it is the user's own (command line) or the project's.
+    policy_base: Path | None = None
+    policy_trusted: bool = True
+    #: The rule settings of the project's file and the command line, before the
+    #: policy is put beneath them (see :func:`apply_policy`).
+    own_rules: dict[str, dict[str, Any]] = field(default_factory=dict)
 
     def effective(self) -> dict[str, Any]:
         """JSON-safe view of the settings that shaped the audit (for reports)."""
@@ -219,6 +233,7 @@ class Config:
             "max_table_rows": self.max_table_rows,
             "page_size": self.page_size,
             "max_input_share": self.max_input_share,
+            "policy": self.policy,
             "rules": {k: dict(sorted(v.items())) for k, v in sorted(self.rules.items())},
             "config_file": self.source.name if self.source else None,
         }
@@ -461,12 +476,25 @@ def load_config(root: Path, config_file: Path | None, cli: dict[str, Any],
         dupes = sorted({n for n in names if names.count(n) > 1})
         if dupes:
             raise ConfigError(f"{origin}: analysis names must be unique ({', '.join(dupes)})")
+    if path is not None and "policy" in table:
+        cfg.policy_base, cfg.policy_trusted = path.parent, config_file is not None
     overrides = {k: v for k, v in cli.items() if v is not None}
     _apply(cfg, overrides, "command line")
     if "out" in overrides:
         cfg.out_origin = None
+    if "policy" in overrides:
+        cfg.policy_base, cfg.policy_trusted = Path.cwd(), True
     _check_out(root, cfg)
+    cfg.own_rules = {k: dict(v) for k, v in cfg.rules.items()}
     return cfg
+
+
+def apply_policy(cfg: Config, policy: Any) -> None:
+    """Put the policy's rule settings beneath the project's own (``cfg.rules``)."""
+    merged: dict[str, dict[str, Any]] = {k: dict(v) for k, v in policy.rules.items()}
+    for rule_id, opts in cfg.own_rules.items():
+        merged.setdefault(rule_id, {}).update(opts)
+    cfg.rules = merged
 
 
 def _check_out(root: Path, cfg: Config) -> None:

@@ -6,10 +6,12 @@ it and return findings, and the :class:`AuditResult` carries them to reporters.
 
 from __future__ import annotations
 
+import datetime as dt
 import hashlib
 import importlib.metadata
 import os
 import traceback
+from collections.abc import Callable
 from pathlib import Path
 from typing import Any
 
@@ -17,13 +19,22 @@ from auditor import TOOL_NAME, __version__
 from auditor.assemble import assemble
 from auditor.boundary import Boundary, Refused, default_max_bytes, display
 from auditor.comparison import ComparisonSet, comparison_sets
-from auditor.config import Config, check_rule_options, load_config
+from auditor.config import Config, ConfigError, apply_policy, check_rule_options, load_config
 from auditor.coverage import analysis_coverage, comparison_coverage
 from auditor.diagnostics import DiagnosticsTable
 from auditor.discovery import discover
 from auditor.findings import Finding, Location, Severity
+from auditor.gate.accepted import DEFAULT_FILE as ACCEPTED_FILE
+from auditor.gate.accepted import AcceptedFileError
+from auditor.gate.accepted import apply as apply_accepted
+from auditor.gate.accepted import load as load_accepted
+from auditor.gate.baseline import BaselineError, earlier_findings
+from auditor.gate.baseline import compare as compare_baseline
+from auditor.gate.policy import Policy, PolicyError, load_policy
+from auditor.gate.since import SinceError, changed, files_at
 from auditor.loo import LooRecord, LooTable
 from auditor.model import Analysis, AnalysisSpec, InputProblem, Project
+from auditor.programs.read import read_program
 from auditor.registry import all_rules, find_rule
 from auditor.result import AnalysisResult, AuditResult, InputFile
 from auditor.rules_api import ComparisonContext, RuleContext, RuleMeta
@@ -201,10 +212,17 @@ def _priors(analysis: Analysis, project: Project) -> list[str]:
     return out
 
 
+#: An observed variable the comparison could not score: (analysis, observed, key,
+#: label, chosen); see :func:`auditor.comparison.comparison_sets`.
+Unscored = tuple[str, str, str, str, bool]
+
+
 def _audit_analysis(analysis: Analysis, project: Project, rules: list[RuleMeta],
-                    cfg: Config, gate: Boundary) -> tuple[AnalysisResult, list[LooRecord]]:
-    """Run every enabled analysis-scope rule; return the compact result and the
-    compact PSIS-LOO records the project-level comparison needs."""
+                    cfg: Config, gate: Boundary
+                    ) -> tuple[AnalysisResult, list[LooRecord], list[Unscored]]:
+    """Run every enabled analysis-scope rule; return the compact result, the compact
+    PSIS-LOO records the project-level comparison needs, and the observed variables
+    it could not score (``(analysis, observed, key, label, chosen)``)."""
     one_based = analysis.settings.library == "CmdStan"
     table = DiagnosticsTable(analysis.group("posterior"), one_based=one_based)
     loo = LooTable(analysis)
@@ -236,8 +254,9 @@ def _audit_analysis(analysis: Analysis, project: Project, rules: list[RuleMeta],
         findings.append(_failure("diagnostics table", analysis, project, error))
     try:
         records = loo.records()
+        unscored = [(analysis.name, *u) for u in loo.unscored()]
     except Exception as exc:  # odd log-likelihood values must not stop the audit
-        records = []
+        records, unscored = [], []
         findings.append(_failure("PSIS-LOO", analysis, project, exc))
     for error in loo.errors:
         findings.append(_failure("PSIS-LOO", analysis, project, error))
@@ -259,7 +278,7 @@ def _audit_analysis(analysis: Analysis, project: Project, rules: list[RuleMeta],
         pairings=[p.as_dict() for p in analysis.pairings],
         coverage=[c.as_dict() for c in analysis_coverage(analysis, enabled_stages)],
         loo=[r.as_dict() for r in records],
-    ), records
+    ), records, unscored
 
 
 def _cover_comparison(analyses: list[AnalysisResult], records: list[LooRecord],
@@ -356,10 +375,11 @@ def _comparison_findings(sets: list[ComparisonSet], records: list[LooRecord],
         if not enabled or rule.check is None or rule.scope != "comparison":
             continue
         for comp in sets:
+            first = comp.rows[0].analysis if comp.rows else comp.unscored[0]
             ctx = ComparisonContext(
                 rule, comp, {row.analysis: by_name[(row.analysis, comp.key)]
                              for row in comp.rows}, thresholds, severity, locations,
-                config_location or locations.get(comp.rows[0].analysis))
+                config_location or locations.get(first))
             try:
                 out.extend(rule.check(ctx) or [])
             except Exception as exc:  # a rule failing on odd data must not stop the audit
@@ -368,14 +388,112 @@ def _comparison_findings(sets: list[ComparisonSet], records: list[LooRecord],
     return out
 
 
+def _policy(cfg: Config, gate: Boundary) -> Policy:
+    """The policy the configuration names, read through the boundary when it is the
+    project's own file (a built-in or the user's command line is trusted)."""
+    trusted = Boundary.unconfined(gate.max_bytes)
+    reader = trusted.read_bytes if cfg.policy_trusted else gate.read_bytes
+    try:
+        return load_policy(cfg.policy, cfg.policy_base or gate.root, reader)
+    except PolicyError as exc:
+        raise ConfigError(str(exc)) from None
+
+
+def _engine_finding(rule_id: str, message: str, *, analysis: str | None = None,
+                    quantity: str | None = None, location: Location | None = None,
+                    severity: Severity | None = None, evidence: dict | None = None,
+                    cfg: Config | None = None) -> Finding | None:
+    """A finding of an engine-emitted rule, with its configured severity; ``None``
+    when the rule is disabled or left out of this run."""
+    rule = find_rule(rule_id)
+    if rule is None:
+        return None
+    if cfg is not None:
+        enabled, configured, _ = _rule_settings(rule, cfg)
+        if not enabled:
+            return None
+        if configured != rule.severity:
+            severity = configured
+    return Finding(rule_id=rule.id, severity=severity or rule.severity, stage=rule.stage,
+                   message=message, evidence=evidence or {}, fix=rule.fix,
+                   location=location, analysis=analysis, quantity=quantity)
+
+
+def _required_stages(analyses: list[AnalysisResult], policy: Policy, cfg: Config) -> None:
+    """A finding per required stage an analysis did not check (its ``quantity`` is the
+    stage, so that accepting it excuses exactly that stage)."""
+    for a in analyses:
+        for c in a.coverage:
+            if c["stage"] not in policy.require_stages or c["status"] in ("checked",
+                                                                         "not applicable"):
+                continue
+            f = _engine_finding(
+                "inputs.stage-not-checked",
+                f"The {policy.name} policy requires the stage '{c['title'].lower()}', which "
+                f"is {c['status']} here: {c['note']}.",
+                analysis=a.name, quantity=c["stage"], cfg=cfg,
+                location=Location(a.sources[0]) if a.sources else (
+                    Location(a.program) if a.program else None),
+                evidence={"stage": c["stage"], "status": c["status"], "policy": policy.name})
+            if f is not None:
+                a.findings.append(f)
+                a.findings.sort(key=Finding.sort_key)
+
+
+def _acceptances(result: AuditResult, cfg: Config, gate: Boundary, project: Project,
+                 today: dt.date) -> list[Finding]:
+    """Apply the accepted-findings file; return findings about entries that do not apply."""
+    if cfg.accepted is not None:
+        base = cfg.source.parent if cfg.source is not None else project.root
+        path = base / cfg.accepted
+    else:
+        path = project.root / ACCEPTED_FILE
+        if not (path.exists() or path.is_symlink()):
+            return []
+    shown = project.relpath(path)
+    try:
+        entries = load_accepted(path, lambda p: gate.read_text(p))
+    except (AcceptedFileError, Refused, OSError, UnicodeDecodeError) as exc:
+        raise ConfigError(f"{shown}: the accepted-findings file cannot be used ({exc})") from None
+    result.accepted_file = shown
+    outcome = apply_accepted(result.all_findings, entries, today)
+    out = []
+    problems = ([(e, f"expired on {e.expires}", Severity.WARNING) for e in outcome.expired]
+                + [(e, "matches no finding of this audit", Severity.WARNING)
+                   for e in outcome.unmatched]
+                + [(e, "has no reason or no 'by' yet, so it accepts nothing",
+                    Severity.NOTE) for e in outcome.incomplete])
+    for e, what, severity in problems:
+        scope = " / ".join(x for x in (e.rule, e.analysis, e.quantity) if x)
+        f = _engine_finding("inputs.acceptance", f"The acceptance of {scope} {what}.",
+                            analysis=e.analysis, location=Location(shown, e.line),
+                            severity=severity, cfg=cfg,
+                            evidence={"rule": e.rule, "analysis": e.analysis,
+                                      "quantity": e.quantity,
+                                      "expires": e.expires.isoformat() if e.expires else None})
+        if f is not None:
+            out.append(f)
+    return out
+
+
 def run_audit(paths: list[Path], config_path: Path | None = None,
               overrides: dict[str, Any] | None = None,
               only_rules: set[str] | None = None,
-              allow_read: tuple[Path, ...] = ()) -> AuditResult:
+              allow_read: tuple[Path, ...] = (),
+              baseline: Path | None = None,
+              gate_new_only: bool = False,
+              today: dt.date | None = None,
+              since: str | None = None,
+              progress: Callable[[str, int, int], None] | None = None) -> AuditResult:
     """Audit ``paths`` (a project folder or files) and return the one result.
 
     Nothing outside the project root is read, except under the folders of
     ``allow_read`` (the command line's ``--allow-read``, for trusted projects).
+    ``baseline`` is an earlier JSON report to mark findings new, unchanged or gone
+    against; ``gate_new_only`` makes the gate look at new findings only; ``today``
+    is the date acceptances expire against (default: today); ``since`` a git
+    revision: only analyses whose inputs changed since then are audited;
+    ``progress(what, done, total)`` is called as the audit goes (for a progress bar).
 
     Raises
     ------
@@ -392,6 +510,8 @@ def run_audit(paths: list[Path], config_path: Path | None = None,
     cfg = load_config(root, config_path, overrides or {}, gate)
     gate.max_bytes = default_max_bytes(cfg.max_input_share)
     cfg.only_rules = only_rules
+    policy = _policy(cfg, gate)
+    apply_policy(cfg, policy)
     rules = all_rules()
     check_rule_options(cfg, rules)
     specs, problems = analysis_specs(paths, cfg, root, gate)
@@ -400,27 +520,36 @@ def run_audit(paths: list[Path], config_path: Path | None = None,
             f"{root}: no analyses found (no CmdStan CSV, .nc or .zarr draws, no Stan program, "
             "and no [[analysis]] in a configuration file)"
         )
+    if since is not None:
+        specs = _changed_since(specs, since, cfg, gate)
+        if not specs:
+            raise NothingToAudit(f"{root}: no analysis has inputs that changed since {since}")
     project = Project(root=root, problems=problems)
     # First pass, one analysis at a time: load, audit, keep the compact result,
     # release the draws, so memory is bounded by the largest analysis.
     analyses: list[AnalysisResult] = []
     records: list[LooRecord] = []
+    unscored: list[Unscored] = []
     files: set[Path] = set()
-    for spec in specs:
+    for done, spec in enumerate(specs):
+        if progress is not None:
+            progress(f"auditing {spec.name}", done, len(specs))
         analysis = assemble(spec, gate)
-        result, loo_records = _audit_analysis(analysis, project, rules, cfg, gate)
+        result, loo_records, no_loo = _audit_analysis(analysis, project, rules, cfg, gate)
         analyses.append(result)
         records.extend(loo_records)
+        unscored.extend(no_loo)
         files |= _analysis_files(analysis)
         del analysis
+    if progress is not None:
+        progress("comparing models", len(specs), len(specs))
     # Second pass, on compact results only: comparison across analyses.
-    sets = comparison_sets(records)
+    sets = comparison_sets(records, unscored)
     _cover_comparison(analyses, records, sets, rules, cfg)
+    _required_stages(analyses, policy, cfg)
     project.findings = _project_findings(project, cfg)
     project.findings += _comparison_findings(sets, records, analyses, rules, cfg, project)
-    if only_rules is not None:
-        project.findings = [f for f in project.findings if f.rule_id in only_rules]
-    return AuditResult(
+    result = AuditResult(
         tool=TOOL_NAME,
         version=__version__,
         project_name=root.name,
@@ -432,4 +561,49 @@ def run_audit(paths: list[Path], config_path: Path | None = None,
         comparisons=[c.as_dict() for c in sets],
         config=cfg.effective(),
         libraries=_libraries(),
+        policy=policy.as_dict(),
+        gate_new_only=gate_new_only,
     )
+    result.project_findings += _acceptances(result, cfg, gate, project,
+                                            today or dt.date.today())
+    if only_rules is not None:
+        result.project_findings = [f for f in result.project_findings
+                                   if f.rule_id in only_rules]
+    if baseline is not None:
+        result.baseline = _baseline(result, baseline)
+    return result
+
+
+def _changed_since(specs: list[AnalysisSpec], ref: str, cfg: Config,
+                   gate: Boundary) -> list[AnalysisSpec]:
+    """The specs whose input files differ from git revision ``ref`` (all of them when
+    the configuration file did)."""
+    try:
+        _, at_ref = files_at(gate.root or Path.cwd(), ref)
+    except SinceError as exc:
+        raise ConfigError(f"--since {ref}: {exc}") from None
+    if cfg.source is not None and changed({cfg.source}, at_ref, gate.read_bytes):
+        return specs
+    out = []
+    for spec in specs:
+        inputs = {*spec.draws, *spec.prior_draws}
+        for p in (spec.model, spec.data):
+            if p is not None:
+                inputs.add(p)
+        if spec.model is not None and spec.model.suffix == ".stan":
+            inputs.update(Path(i) for i in read_program(spec.model, gate).includes)
+        if changed(inputs, at_ref, gate.read_bytes):
+            out.append(spec)
+    return out
+
+
+def _baseline(result: AuditResult, path: Path) -> dict[str, Any]:
+    """Mark every finding against the earlier report at ``path`` (the user's own file)."""
+    try:
+        text = Boundary.unconfined().read_text(path)
+        earlier = earlier_findings(text, display(path))
+    except (Refused, OSError, UnicodeDecodeError) as exc:
+        raise ConfigError(f"{display(path)}: the baseline report cannot be read ({exc})") from None
+    except BaselineError as exc:
+        raise ConfigError(str(exc)) from None
+    return compare_baseline(result.all_findings, earlier).as_dict()

@@ -96,6 +96,11 @@ class Finding:
     location: Location | None = None
     analysis: str | None = None
     quantity: str | None = None
+    #: Set when the project accepted this finding: ``reason``, ``by``, ``expires``
+    #: (see :mod:`auditor.gate.accepted`); the gate ignores accepted findings.
+    accepted: dict[str, Any] | None = None
+    #: Against a baseline report: ``new`` or ``unchanged`` (see :mod:`auditor.gate.baseline`).
+    baseline: str | None = None
 
     def __post_init__(self) -> None:
         # File names with bytes that are not UTF-8 end up in messages; a report must

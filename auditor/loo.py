@@ -81,7 +81,7 @@ class VariableLoo:
     waic: Any  # auditor.kernels.psis.WaicResult
 
 
-def _data_key(analysis: Analysis, observed: str, y: np.ndarray | None) -> tuple[str, str]:
+def data_key(analysis: Analysis, observed: str, y: np.ndarray | None) -> tuple[str, str]:
     """(comparison key, label): the data file and variable when declared, else the
     observed values themselves (identical values are the same data)."""
     spec = analysis.spec
@@ -153,6 +153,22 @@ class LooTable:
                                    else None, loo, w))
         return out
 
+    def unscored(self) -> list[tuple[str, str, str, bool]]:
+        """(observed, comparison key, label, chosen) of observed variables without
+        PSIS-LOO, so the comparison knows which models of the same data could not be
+        scored."""
+        from auditor.predictive_checks import observed_values
+
+        scored = {v.observed for v in self.variables}
+        out = []
+        for p in self.analysis.pairings:
+            if p.observed in scored:
+                continue
+            y = observed_values(self.analysis, p.observed)
+            chosen = bool(getattr(self.analysis.spec, "chosen", False))
+            out.append((p.observed, *data_key(self.analysis, p.observed, y), chosen))
+        return out
+
     def records(self) -> list[LooRecord]:
         """Compact records for the project-level comparison."""
         spec = self.analysis.spec
@@ -160,7 +176,7 @@ class LooTable:
         n_par = n_parameters(self.analysis)
         out = []
         for v in self.variables:
-            key, label = _data_key(self.analysis, v.observed, v.y)
+            key, label = data_key(self.analysis, v.observed, v.y)
             k = v.loo.pareto_k
             out.append(LooRecord(
                 analysis=self.analysis.name, observed=v.observed, key=key, data_label=label,

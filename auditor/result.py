@@ -78,10 +78,11 @@ class AnalysisResult:
 
     @property
     def worst(self) -> Severity | None:
-        """Most severe finding level, ``None`` when there are no findings."""
-        if not self.findings:
+        """Most severe level of the findings not accepted, ``None`` when there are none."""
+        open_findings = [f for f in self.findings if f.accepted is None]
+        if not open_findings:
             return None
-        return max((f.severity for f in self.findings), key=lambda s: s.rank)
+        return max((f.severity for f in open_findings), key=lambda s: s.rank)
 
     @property
     def verdict(self) -> str:
@@ -121,6 +122,15 @@ class AuditResult:
     #: Comparison sets of analyses of the same data (``ComparisonSet.as_dict()`` of
     #: :mod:`auditor.comparison`), best model first.
     comparisons: list[dict[str, Any]] = field(default_factory=list)
+    #: The policy applied (``Policy.as_dict()``: name, hash, files).
+    policy: dict[str, Any] = field(default_factory=dict)
+    #: The accepted-findings file used (project-relative path), or ``None``.
+    accepted_file: str | None = None
+    #: Against a baseline report: counts of new, unchanged and gone findings, and the
+    #: gone ones (``Comparison.as_dict()`` of :mod:`auditor.gate.baseline`).
+    baseline: dict[str, Any] | None = None
+    #: Gate on findings that are new against the baseline only.
+    gate_new_only: bool = False
 
     @property
     def all_findings(self) -> list[Finding]:
@@ -131,19 +141,31 @@ class AuditResult:
         return out
 
     def counts(self) -> dict[str, int]:
-        """Number of findings per severity (all three keys always present)."""
+        """Number of findings not accepted per severity (all three keys always present)."""
         c = {s.value: 0 for s in (Severity.ERROR, Severity.WARNING, Severity.NOTE)}
         for f in self.all_findings:
-            c[f.severity.value] += 1
+            if f.accepted is None:
+                c[f.severity.value] += 1
         return c
 
     @property
+    def accepted_count(self) -> int:
+        """Number of findings the project accepted (each with its reason)."""
+        return sum(1 for f in self.all_findings if f.accepted is not None)
+
+    def gating_findings(self) -> list[Finding]:
+        """The findings the gate looks at: not accepted, and new against the baseline
+        when gating on new findings only."""
+        return [f for f in self.all_findings if f.accepted is None
+                and (not self.gate_new_only or f.baseline in (None, "new"))]
+
+    @property
     def gate_reached(self) -> bool:
-        """Whether some finding is at or above the gate level."""
+        """Whether some finding the gate looks at is at or above the gate level."""
         if self.gate == "never":
             return False
         level = Severity(self.gate).rank
-        return any(f.severity.rank >= level for f in self.all_findings)
+        return any(f.severity.rank >= level for f in self.gating_findings())
 
     @property
     def exit_status(self) -> int:

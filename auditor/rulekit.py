@@ -13,10 +13,14 @@ from auditor.rules_api import RuleContext
 
 
 def low_ess_findings(ctx: RuleContext, column: str, label: str) -> Iterator[Finding]:
-    """Findings for variables whose ``column`` ESS is below ``min_per_chain`` x chains."""
+    """Findings for variables whose ``column`` ESS is below ``min_per_chain`` x chains
+    (or below ``min_total`` when that is higher)."""
     chains = max(ctx.analysis.n_chains, 1)
     per_chain = float(ctx.thresholds["min_per_chain"])
-    limit = per_chain * chains
+    floor = float(ctx.thresholds.get("min_total", 0))
+    limit = max(per_chain * chains, floor)
+    basis = ("the required minimum" if floor > per_chain * chains
+             else f"{per_chain:g} per chain x {chains} chains")
     by_var = defaultdict(list)
     for row in ctx.diagnostics.rows:
         if not row["constant"] and row[column] is not None:
@@ -28,12 +32,13 @@ def low_ess_findings(ctx: RuleContext, column: str, label: str) -> Iterator[Find
         worst = min(bad, key=lambda r: r[column])
         share = f"{len(bad)} of {len(rows)} elements of {var}" if len(rows) > 1 else var
         yield ctx.finding(
-            f"{label} of {share} below {limit:g} ({per_chain:g} per chain x {chains} chains); "
+            f"{label} of {share} below {limit:g} ({basis}); "
             f"lowest {worst['quantity']} = {worst[column]:.0f}",
             evidence={
                 column: round(worst[column], 2),
                 "threshold": limit,
                 "per_chain": per_chain,
+                "min_total": floor,
                 "chains": chains,
                 "flagged": len(bad),
                 "elements": len(rows),

@@ -433,6 +433,14 @@ def _comparison_cases(rng: np.random.Generator) -> None:
                              rng)
     (folder / "expect.toml").write_text('[[hit]]\npath = "bayes-auditor.toml"\n')
 
+    # comparison.unscored: the second model of the same data saved no log_lik.
+    _models_project("comparison.unscored", "good", data, {"fit": fit, "wide": wide}, rng,
+                    chosen="fit")
+    folder = _models_project("comparison.unscored", "bad", data,
+                             {"fit": fit, "bare": {k: v for k, v in wide.items()
+                                                   if k != "log_lik"}}, rng, chosen="fit")
+    (folder / "expect.toml").write_text('[[hit]]\npath = "bare-1.csv"\n')
+
 
 def _normal_fit_sd(rng: np.random.Generator, y: np.ndarray, sd: float) -> dict:
     """Exact posterior draws of mu under a normal likelihood with known ``sd``."""

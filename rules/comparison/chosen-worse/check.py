@@ -8,6 +8,8 @@ def check(ctx):
     limit = float(ctx.thresholds["min_difference"])
     ratio = float(ctx.thresholds["min_se_ratio"])
     comp = ctx.comparison
+    if len(comp.rows) < 2:
+        return
     best = comp.rows[0]
     for row in comp.rows[1:]:
         if not row.chosen:
