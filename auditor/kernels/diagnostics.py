@@ -8,6 +8,8 @@ package ``posterior`` after 1.6.0 and in arviz-stats):
   folded draws ``|x - median|``; ``rhat_rank``: the larger of the two (rank-normalized R-hat);
 - ``rhat_raw``: the classic R-hat of Gelman & Rubin (1992) on the unsplit chains, as
   ``posterior::rhat_basic(x, split = FALSE)`` (that is what the reference table holds);
+  ``rhat_split``: the classic R-hat of the split chains (Gelman et al. 2013, BDA3 section 11.4;
+  ``posterior::rhat_basic(x)``, arviz-stats' ``rhat(method="split")``);
 - ``ess_bulk`` (ESS of the rank-normalized split chains) and ``ess_tail`` (the smaller ESS of
   the indicators ``x <= q05`` and ``x <= q95``);
 - ``ess_mean`` (split chains), ``ess_sd`` (ESS of ``(x - mean)^2``), ``ess_median``,
@@ -78,7 +80,7 @@ def measure_names(quantiles: Iterable[float] = DEFAULT_QUANTILES) -> tuple[str, 
     """
     labels = [prob_label(p) for p in quantiles]
     return (
-        "rhat_rank", "rhat_bulk", "rhat_folded", "rhat_raw",
+        "rhat_rank", "rhat_bulk", "rhat_folded", "rhat_raw", "rhat_split",
         "ess_bulk", "ess_tail", "ess_mean", "ess_sd", "ess_median", "ess_raw",
         *(f"ess_quantile_{label}" for label in labels),
         "mcse_mean", "mcse_sd", "mcse_median",
@@ -125,6 +127,7 @@ class _Plan:
         self.bulk_z = bool(want & {"rhat_rank", "rhat_bulk", "ess_bulk"})
         self.folded_z = bool(want & {"rhat_rank", "rhat_folded"})
         self.raw_rhat = "rhat_raw" in want
+        self.split_rhat = "rhat_split" in want
         self.raw_ess = "ess_raw" in want
         # Series whose split-chain ESS is needed, in stack order; indicator series by prob.
         series: list[str | float] = []
@@ -202,13 +205,14 @@ def bytes_per_quantity(
     """Working memory one quantity needs in :func:`diagnose_block` (a generous estimate).
 
     In arrays of ``chains * draws`` values (8 bytes): the block copy, its sort keys, order and
-    sorted values, the scores and five folded-order buffers (10; 14 for an odd draw count); per
+    sorted values, the scores, five folded-order buffers and the split chains' variance
+    temporary (11; 15 for an odd draw count); per
     series the padded series, its spectrum and at most as much again for series redone with
     full padding (3 each, times the padding ratio); the same for the unsplit ``ess_raw`` series.
     """
     half = max(draws // 2, 1)
     split_ratio = fft_size(half, _first_lags(half, lags)) / half
-    units = 10 + (4 if draws % 2 else 0) + 3 * n_series * split_ratio
+    units = 11 + (4 if draws % 2 else 0) + 3 * n_series * split_ratio
     if raw_ess:
         units += 3 * fft_size(max(draws, 1), _first_lags(draws, lags)) / max(draws, 1)
     return int(units * chains * max(draws, 1) * 8)
@@ -309,6 +313,9 @@ def _diagnose(
         del mapped, keep
 
     rhat_ok = n_chains >= MIN_CHAINS_RHAT
+    if plan.split_rhat and rhat_ok:
+        # Classic split R-hat on the draws themselves, before anything is centered in place.
+        rhat_split = _rhat(np.mean(split, axis=-1), np.var(split, axis=-1, ddof=1), half)
     # Series for the FFT live in a zero-padded buffer: the FFT then needs no padded copy.
     padded = fft_size(half, _first_lags(half, lags))
     stack = ws("series", (plan.n_series, n_q, 2 * n_chains, padded))
@@ -410,6 +417,8 @@ def _diagnose(
             results["rhat_rank"] = np.where(rhat_folded > rhat_bulk, rhat_folded, rhat_bulk)
         if plan.raw_rhat:
             results["rhat_raw"] = rhat_raw
+        if plan.split_rhat:
+            results["rhat_split"] = rhat_split
     if plan.raw_ess:
         results["ess_raw"] = ess_raw
     if "bulk" in slot:
