@@ -28,7 +28,7 @@ from auditor.kernels.diagnostics import (
     diagnose_block,
 )
 
-__all__ = ["COLUMNS", "TAIL_PROBS", "DiagnosticsTable", "quantity_label"]
+__all__ = ["COLUMNS", "TAIL_PROBS", "DiagnosticsTable", "quantity_label", "quantity_labels"]
 
 COLUMNS = ("quantity", "variable", "rhat", "ess_bulk", "ess_tail", "mcse_mean", "mean", "sd")
 #: Row key of each kernel measure in the table.
@@ -38,16 +38,16 @@ ROW_KEYS = {"rhat_rank": "rhat", "ess_bulk": "ess_bulk", "ess_tail": "ess_tail",
 MIN_DRAWS = 4
 
 
+def _coord_label(coord: Any, one_based: bool) -> str:
+    if isinstance(coord, np.integer | int) and not isinstance(coord, bool | np.bool_):
+        return str(int(coord) + (1 if one_based else 0))
+    return str(coord)
+
+
 def _labels_of(da: xr.DataArray, dim: str, size: int, one_based: bool) -> list[str]:
     """Labels of one dimension's positions: coordinates (integers 1-based if asked) or indices."""
-    values = da.coords[dim].values if dim in da.coords else np.arange(size)
-    out = []
-    for coord in values:
-        if isinstance(coord, np.integer | int) and not isinstance(coord, bool | np.bool_):
-            out.append(str(int(coord) + (1 if one_based else 0)))
-        else:
-            out.append(str(coord))
-    return out
+    values = da.coords[dim].values if dim in da.coords else range(size)
+    return [_coord_label(coord, one_based) for coord in values]
 
 
 def quantity_label(var: str, da: xr.DataArray, index: tuple, one_based: bool) -> str:
@@ -58,9 +58,20 @@ def quantity_label(var: str, da: xr.DataArray, index: tuple, one_based: bool) ->
     """
     if not index:
         return var
-    dims = [d for d in da.dims if d not in ("chain", "draw")]
-    parts = [_labels_of(da, d, da.sizes[d], one_based)[i] for d, i in zip(dims, index, strict=True)]
+    parts = []
+    for dim, i in zip([d for d in da.dims if d not in ("chain", "draw")], index, strict=True):
+        coord = da.coords[dim].values[i] if dim in da.coords else i
+        parts.append(_coord_label(coord, one_based))
     return f"{var}[{','.join(parts)}]"
+
+
+def quantity_labels(var: str, da: xr.DataArray, one_based: bool) -> list[str]:
+    """Labels of every scalar element of ``da`` in C order (as :func:`quantity_label`)."""
+    dims = [d for d in da.dims if d not in ("chain", "draw")]
+    if not dims:
+        return [var]
+    per_dim = [_labels_of(da, d, da.sizes[d], one_based) for d in dims]
+    return [f"{var}[{','.join(p)}]" for p in itertools.product(*per_dim)]
 
 
 def _finite(x: float) -> float | None:
@@ -113,13 +124,8 @@ class DiagnosticsTable:
                 continue
             da = da.transpose("chain", "draw", ...)
             values = np.asarray(da.values)
-            dims = [d for d in da.dims if d not in ("chain", "draw")]
             flat = values.reshape(values.shape[0], values.shape[1], -1)
-            if dims:
-                per_dim = [_labels_of(da, d, da.sizes[d], self.one_based) for d in dims]
-                labels = [f"{var}[{','.join(p)}]" for p in itertools.product(*per_dim)]
-            else:
-                labels = [str(var)]
+            labels = quantity_labels(str(var), da, self.one_based)
             out.append(_Variable(str(var), flat, labels, start))
             start += flat.shape[2]
         return out
