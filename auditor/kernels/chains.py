@@ -183,3 +183,41 @@ def chain_contrasts(scores: np.ndarray) -> np.ndarray:
 def bonferroni_z(alpha: float, tests: int) -> float:
     """Two-sided normal critical value for ``tests`` tests at family-wise level ``alpha``."""
     return float(special.ndtri(1.0 - alpha / (2.0 * max(tests, 1))))
+
+
+def odd_chains(series: Any, critical: float) -> list[tuple[int, int, str, float]]:
+    """Chains that differ from every other chain, by the rank-normalized chain contrasts.
+
+    A chain is odd in a series when its standardized difference (:func:`chain_contrasts`) from
+    each other chain exceeds ``critical`` in absolute value, all with one sign: in location
+    (rank-normalized draws), or else in scale (rank-normalized folded draws ``|x - median|``;
+    a chain odd in location is not tested for scale, which the shift would confound).
+
+    Parameters
+    ----------
+    series : array_like
+        Shape (series, chains, draws), finite.
+    critical : float
+        Critical value of ``|z|`` (e.g. :func:`bonferroni_z` over every test made).
+
+    Returns
+    -------
+    list of (series, chain, kind, z)
+        ``kind`` is ``"location"`` or ``"scale"``; ``z`` the contrast with the closest other
+        chain, signed (positive: higher, or wider).
+    """
+    x = np.asarray(series, dtype=np.float64)
+    n_chains = x.shape[1]
+    off = ~np.eye(n_chains, dtype=bool)
+    hits: list[tuple[int, int, str, float]] = []
+    seen: set[tuple[int, int]] = set()
+    for kind, folded in (("location", False), ("scale", True)):
+        t = chain_contrasts(rank_scores(x, folded=folded))
+        weakest = np.where(off, np.abs(t), np.inf).min(axis=2)
+        for s, c in zip(*np.nonzero(np.isfinite(weakest) & (weakest > critical)), strict=True):
+            signs = np.sign(t[s, c][off[c]])
+            if (int(s), int(c)) in seen or not (signs == signs[0]).all():
+                continue
+            seen.add((int(s), int(c)))
+            hits.append((int(s), int(c), kind, float(signs[0] * weakest[s, c])))
+    return hits
