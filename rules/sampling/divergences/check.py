@@ -73,8 +73,10 @@ def check(ctx):
                    f"non-centered form; otherwise {raise_delta[0].lower() + raise_delta[1:]} "
                    "(or reparameterize the region named above).")
     if fix is None:
+        where = ("the region named above" if shown else
+                 "where they sit (a pairs plot of the parameters shows it)")
         fix = (f"{raise_delta} so that the step size can follow the curvature, and reparameterize "
-               "the region named above if divergences remain.")
+               f"{where} if divergences remain.")
     yield ctx.finding(
         message,
         evidence={
