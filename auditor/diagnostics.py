@@ -22,6 +22,7 @@ import xarray as xr
 from auditor.kernels.diagnostics import (
     CONVERGENCE,
     DEFAULT_BLOCK_BYTES,
+    DRAW_SUMMARIES,
     TAIL_PROBS,
     Workspace,
     block_size,
@@ -228,13 +229,22 @@ class DiagnosticsTable:
         nonfinite = np.zeros(total, dtype=np.int64)
         workspace = Workspace()
         for idx, block in self.blocks(self._per_block(4)):
-            result = diagnose_block(block, measures=CONVERGENCE, quantiles=(),
+            result = diagnose_block(block, measures=CONVERGENCE + DRAW_SUMMARIES, quantiles=(),
                                     workspace=workspace)
             for name in CONVERGENCE:
                 columns[name][idx] = result[name]
-            mean, sd, const, bad = _moments(block)
-            columns["mean"][idx], columns["sd"][idx] = mean, sd
-            constant[idx], nonfinite[idx] = const, bad
+            # Mean, sd and range come with the kernel's sort; quantities with a non-finite draw
+            # (NaN or infinite at an end of the sorted draws) are summarized over their finite
+            # draws instead.
+            low, high = result["draws_min"], result["draws_max"]
+            columns["mean"][idx], columns["sd"][idx] = result["draws_mean"], result["draws_sd"]
+            constant[idx] = low == high
+            odd = ~(np.isfinite(low) & np.isfinite(high))
+            if odd.any():
+                mean, sd, const, bad = _moments(np.asarray(block)[:, :, odd])
+                at = idx[odd]
+                columns["mean"][at], columns["sd"][at] = mean, sd
+                constant[at], nonfinite[at] = const, bad
         out: list[dict[str, Any]] = []
         rhat, bulk = columns["rhat_rank"].tolist(), columns["ess_bulk"].tolist()
         tail, mcse = columns["ess_tail"].tolist(), columns["mcse_mean"].tolist()

@@ -143,14 +143,23 @@ def divergence_sites(ctx: RuleContext, divergent: np.ndarray,
     sites: list[dict] = []
     labels = table.quantities
     with np.errstate(all="ignore"):
+        rows = np.flatnonzero(mask)
         for idx, block in table.blocks(index=index):
-            flat = np.asarray(block, dtype=np.float64).reshape(mask.size, -1)
-            ok = np.isfinite(flat).all(axis=0) & (flat.max(axis=0) > flat.min(axis=0))
-            positive = (flat > 0).all(axis=0)
-            values = np.where(positive, np.log(np.where(positive, flat, 1.0)), flat)
-            div_mean = values[mask].mean(axis=0)
-            other_mean = values[~mask].mean(axis=0)
-            sd = values.std(axis=0, ddof=1)
+            # (draws, q) with draws in (chain, draw) order, as the mask.
+            values = np.asarray(block, dtype=np.float64).reshape(mask.size, -1)
+            low, high = values.min(axis=0), values.max(axis=0)
+            ok = np.isfinite(low) & np.isfinite(high) & (high > low)
+            positive = ok & (low > 0)
+            div_mean, other_mean, sd = (np.empty(values.shape[1]) for _ in range(3))
+            for cols, scale in ((~positive, None), (positive, np.log)):
+                if not cols.any():
+                    continue
+                part = values[:, cols] if scale is None else scale(values[:, cols])
+                total = part.mean(axis=0)
+                div = part[rows].mean(axis=0)
+                div_mean[cols] = div
+                other_mean[cols] = (total * mask.size - div * n_div) / (mask.size - n_div)
+                sd[cols] = part.std(axis=0, ddof=1)
             distance = (div_mean - other_mean) / sd
             for j in np.flatnonzero(ok & np.isfinite(distance) & (sd > 0)):
                 log = bool(positive[j])

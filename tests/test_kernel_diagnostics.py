@@ -223,6 +223,23 @@ def test_split_rhat_sees_a_drift_that_unsplit_rhat_misses():
     np.testing.assert_allclose(ours["rhat_split"], theirs["rhat_split"], rtol=1e-9)
 
 
+def test_draw_summaries_are_numpys():
+    # Source: numpy's mean, std (ddof 1), min and max of the pooled draws; NaN for a quantity
+    # with a NaN draw, as every measure of the kernel.
+    from auditor.kernels.diagnostics import DRAW_SUMMARIES
+
+    bad = CASES["NaN and infinite draws"][:, :, [0, 2, 5]]  # one NaN, one inf, both infs
+    x = np.concatenate([CASES["normal 4x100x12"][:, :30, :3], bad], axis=2)
+    got = diagnose_block(x, measures=DRAW_SUMMARIES)
+    pooled = x.reshape(-1, x.shape[2])
+    with np.errstate(invalid="ignore"):
+        want = {"draws_mean": pooled.mean(axis=0), "draws_sd": pooled.std(axis=0, ddof=1),
+                "draws_min": pooled.min(axis=0), "draws_max": pooled.max(axis=0)}
+    want = {k: np.where(np.isnan(pooled).any(axis=0), np.nan, v) for k, v in want.items()}
+    for name, values in want.items():
+        np.testing.assert_allclose(got[name], values, rtol=1e-12, equal_nan=True, err_msg=name)
+
+
 def test_undefined_cases_are_nan_as_in_arviz_stats():
     # Source: arviz-stats (oracle): which results are undefined, spelled out.
     ours = summarize(CASES["NaN and infinite draws"])

@@ -57,6 +57,10 @@ CONVERGENCE: tuple[str, ...] = ("rhat_rank", "ess_bulk", "ess_tail", "mcse_mean"
 #: Largest working-memory budget of one block, in bytes (the default is also at most half the
 #: draws array, so that the peak stays under twice the array).
 DEFAULT_BLOCK_BYTES = 64 * 2**20
+#: Plain summaries of the draws that :func:`diagnose_block` also gives when asked (they are
+#: by-products of its sort and copy): mean, sd (ddof 1), smallest and largest draw. Not part of
+#: :func:`measure_names`; NaN for a quantity with a NaN draw, as every measure.
+DRAW_SUMMARIES: tuple[str, ...] = ("draws_mean", "draws_sd", "draws_min", "draws_max")
 #: Minimum draws per chain for any measure, chains for R-hat (arviz-stats' ``not_valid``).
 MIN_DRAWS, MIN_CHAINS_RHAT = 4, 2
 
@@ -118,7 +122,7 @@ class _Plan:
 
     def __init__(self, names: Iterable[str], quantiles: Iterable[float]) -> None:
         self.quantiles = tuple(float(p) for p in quantiles)
-        known = set(measure_names(self.quantiles))
+        known = set(measure_names(self.quantiles)) | set(DRAW_SUMMARIES)
         self.names = tuple(names)
         unknown = [n for n in self.names if n not in known]
         if unknown:
@@ -242,7 +246,8 @@ def diagnose_block(
     quantiles : iterable of float, default (0.01, 0.1, 0.3)
         Probabilities of ``ess_quantile_<p>`` and ``mcse_quantile_<p>``.
     measures : iterable of str, optional
-        Names to compute (see :func:`measure_names`); all of them by default.
+        Names to compute (see :func:`measure_names`, and :data:`DRAW_SUMMARIES`); all of
+        :func:`measure_names` by default.
     lags : int or None, default -1
         Autocovariance lags of the first FFT pass (-1: an eighth of the series, at least 16;
         None: all). Series whose Geyer truncation lies further out are redone with every lag,
@@ -284,6 +289,13 @@ def _diagnose(
     order = ws("order", (n_q, size), np.int64)
     ordered = ws("sorted", (n_q, size))
     sort_rows(flat, order, ordered, ws("keys", (n_q, size), np.int64))
+    results: dict[str, np.ndarray] = {}
+    if "draws_min" in plan.names:
+        results["draws_min"] = ordered[:, 0].copy()
+    if "draws_max" in plan.names:
+        results["draws_max"] = ordered[:, -1].copy()
+    if "draws_mean" in plan.names:
+        results["draws_mean"] = flat.mean(axis=1)
     invalid = np.isnan(ordered[:, 0]) | np.isnan(ordered[:, -1])
     if invalid.any():
         # Any NaN makes every measure NaN (arviz-stats); zeros keep the arithmetic quiet.
@@ -378,8 +390,10 @@ def _diagnose(
         spread = series.max(axis=(1, 2)) - series.min(axis=(1, 2))
         constant[slot["sd"]] = spread < CONSTANT_RANGE
         means[slot["sd"]] = _center(series)
-    if "mcse_mean" in plan.names:
+    if "mcse_mean" in plan.names or "draws_sd" in plan.names:
         sd = np.std(flat, axis=1, ddof=1)
+        if "draws_sd" in plan.names:
+            results["draws_sd"] = sd
 
     # Unsplit chains: classic R-hat and raw ESS; the block copy is centered in place now.
     if (plan.raw_rhat and rhat_ok) or plan.raw_ess:
@@ -406,7 +420,6 @@ def _diagnose(
             spectrum,
         ).reshape(plan.n_series, n_q)
 
-    results: dict[str, np.ndarray] = {}
     if rhat_ok:
         if plan.bulk_z:
             results["rhat_bulk"] = rhat_bulk

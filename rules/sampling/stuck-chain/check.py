@@ -31,8 +31,10 @@ def _series(ctx) -> tuple[list[str], list[np.ndarray], int]:
         index = np.arange(total)
     else:
         limit = float(ctx.thresholds["screen_rhat"])
-        index = np.array([k for k, r in enumerate(rows)
-                          if r["rhat"] is not None and r["rhat"] > limit], dtype=np.int64)
+        screened = sorted(((r["rhat"], k) for k, r in enumerate(rows)
+                           if r["rhat"] is not None and r["rhat"] > limit), reverse=True)
+        keep = screened[: max(0, int(ctx.thresholds["max_screened"]))]
+        index = np.array(sorted(k for _, k in keep), dtype=np.int64)
     if index.size:
         for idx, block in table.blocks(index=index):
             for j, k in enumerate(idx):
