@@ -11,7 +11,7 @@ from auditor.rulekit import sample_stat
 def check(ctx):
     """One finding listing the chains whose E-BFMI is below ``min_ebfmi``."""
     energy = sample_stat(ctx, "energy")
-    if energy is None or energy.ndim != 2 or energy.shape[1] < 3:
+    if energy is None or energy.ndim != 2 or energy.shape[1] < 3 or energy.dtype.kind not in "fiu":
         return
     values = ebfmi(energy.astype(float))
     limit = float(ctx.thresholds["min_ebfmi"])

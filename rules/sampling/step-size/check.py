@@ -13,11 +13,14 @@ def _step_sizes(ctx) -> np.ndarray | None:
     n = ctx.analysis.n_chains
     attr = posterior_attr(ctx, "adapted_step_size")
     if attr is not None:
-        values = np.asarray(attr, dtype=np.float64).reshape(-1)
+        try:
+            values = np.asarray(attr, dtype=np.float64).reshape(-1)
+        except (TypeError, ValueError):  # an attribute of another kind: use the statistic
+            values = np.array([])
         if values.size == n and np.isfinite(values).any():
             return values
     stat = sample_stat(ctx, "step_size")
-    if stat is None or stat.ndim != 2 or stat.shape[0] != n:
+    if stat is None or stat.ndim != 2 or stat.shape[0] != n or stat.dtype.kind not in "fiu":
         return None
     out = np.full(n, np.nan)
     for c in range(n):

@@ -19,7 +19,7 @@ def _series(ctx) -> tuple[list[str], list[np.ndarray], int]:
     bound = 0
     for stat, label in STATS:
         values = sample_stat(ctx, stat)
-        if values is not None and values.ndim == 2:
+        if values is not None and values.ndim == 2 and values.dtype.kind in "fiu":
             bound += 1
             names.append(label)
             arrays.append(values.astype(np.float64))
