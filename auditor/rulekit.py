@@ -122,3 +122,120 @@ def observed_support(ctx: RuleContext, observed: str, kind: str):  # noqa: ANN20
     lower = decl.lower.value if decl is not None and decl.lower is not None else None
     upper = decl.upper.value if decl is not None and decl.upper is not None else None
     return support(kind, lower, upper, integer_type=decl is not None and decl.type == "int")
+
+
+# --- sampling rules that explain a cause (issue 12) --------------------------------------------
+# Helpers of sampling.divergences, stuck-chain, step-size, thinning, nested-rhat and mcse.
+
+
+def chain_names(ctx: RuleContext) -> list[str]:
+    """Printable name of every chain: its id from the files (``chain 3``), else its position."""
+    n = ctx.analysis.n_chains
+    ids = ctx.analysis.settings.chain_ids
+    if len(ids) == n:
+        return [f"chain {i}" for i in ids]
+    return [f"chain {i + 1}" for i in range(n)]
+
+
+def chain_location(ctx: RuleContext, chain: int) -> Location | None:
+    """The file of one chain when every chain has its own (CmdStan CSV), else the first file."""
+    sources = ctx.analysis.sources
+    if len(sources) == ctx.analysis.n_chains and 0 <= chain < len(sources):
+        return Location(ctx.project.relpath(sources[chain]))
+    return Location(ctx.project.relpath(sources[0])) if sources else None
+
+
+def many_short_chains(ctx: RuleContext, min_chains: int, max_draws: int) -> bool:
+    """True when the run has at least ``min_chains`` chains of fewer than ``max_draws`` draws,
+    the regime where nested R-hat (Margossian et al. 2024) replaces the classic R-hat rule."""
+    a = ctx.analysis
+    return a.n_chains >= min_chains and 0 < a.n_draws < max_draws
+
+
+def parameter_index(ctx: RuleContext) -> np.ndarray | None:
+    """Table positions of the program's parameters, or ``None`` (all quantities) when the
+    program is unknown or none of its parameters is in the posterior."""
+    prog = ctx.analysis.program
+    if prog is None or prog.syntax_errors:
+        return None
+    names = {d.name for d in prog.parameters}
+    index = ctx.diagnostics.index_of(names) if names else np.array([], dtype=np.int64)
+    return index if index.size else None
+
+
+def divergence_sites(ctx: RuleContext, divergent: np.ndarray,
+                     index: np.ndarray | None = None) -> list[dict]:
+    """Quantities whose divergent draws lie farthest from the other draws, farthest first.
+
+    For every quantity with finite, non-constant draws: the difference between the mean of the
+    divergent draws and the mean of the others, divided by the sd of all draws (a standardized
+    mean difference), on the log scale when every draw is positive (scales, where a funnel's
+    neck opens up; Betancourt 2017). ``divergent`` is a (chain, draw) mask aligned with the
+    posterior. Each site: ``quantity``, ``distance`` (signed: negative when the divergent draws
+    sit lower), ``log`` (whether the log scale was used), ``divergent_mean`` and ``other_mean``
+    (on the draws' own scale, geometric means for log-scale quantities).
+    """
+    table = ctx.diagnostics
+    mask = np.asarray(divergent, dtype=bool).reshape(-1)
+    n_div = int(mask.sum())
+    chains, draws, total = table.shape
+    if n_div == 0 or n_div == mask.size or chains * draws != mask.size or total == 0:
+        return []
+    sites: list[dict] = []
+    labels = table.quantities
+    with np.errstate(all="ignore"):
+        rows = np.flatnonzero(mask)
+        for idx, block in table.blocks(index=index):
+            # (draws, q) with draws in (chain, draw) order, as the mask.
+            values = np.asarray(block, dtype=np.float64).reshape(mask.size, -1)
+            low, high = values.min(axis=0), values.max(axis=0)
+            ok = np.isfinite(low) & np.isfinite(high) & (high > low)
+            positive = ok & (low > 0)
+            div_mean, other_mean, sd = (np.empty(values.shape[1]) for _ in range(3))
+            for cols, scale in ((~positive, None), (positive, np.log)):
+                if not cols.any():
+                    continue
+                part = values[:, cols] if scale is None else scale(values[:, cols])
+                total = part.mean(axis=0)
+                div = part[rows].mean(axis=0)
+                div_mean[cols] = div
+                other_mean[cols] = (total * mask.size - div * n_div) / (mask.size - n_div)
+                sd[cols] = part.std(axis=0, ddof=1)
+            distance = (div_mean - other_mean) / sd
+            for j in np.flatnonzero(ok & np.isfinite(distance) & (sd > 0)):
+                log = bool(positive[j])
+                back = np.exp if log else float
+                sites.append({
+                    "quantity": labels[int(idx[j])],
+                    "distance": float(distance[j]),
+                    "log": log,
+                    "divergent_mean": float(back(div_mean[j])),
+                    "other_mean": float(back(other_mean[j])),
+                })  # fmt: skip
+    sites.sort(key=lambda s: (-abs(s["distance"]), s["quantity"]))
+    return sites
+
+
+def centered_over(ctx: RuleContext, variable: str) -> list[Declaration]:
+    """Parameters drawn in centered form with ``variable`` in their prior's scale (a
+    hierarchy ``theta ~ normal(mu, tau)`` over ``tau``, without an affine ``multiplier``)."""
+    prog = ctx.analysis.program
+    if prog is None or prog.syntax_errors or variable not in prog.declarations:
+        return []
+    out = []
+    for name in prog.declarations[variable].scale_of:
+        decl = prog.declarations.get(name)
+        if decl is not None and decl.block in PRIOR_BLOCKS and decl.multiplier is None:
+            out.append(decl)
+    return out
+
+
+def posterior_attr(ctx: RuleContext, name: str) -> object | None:
+    """An attribute of the posterior group (or the tree), or ``None``."""
+    tree = ctx.analysis.tree
+    if tree is None:
+        return None
+    for node in (tree["posterior"] if "posterior" in tree.children else None, tree):
+        if node is not None and name in node.attrs:
+            return node.attrs[name]
+    return None

@@ -6,7 +6,7 @@ Baselines, all on the same in-memory posterior (chains, draws, quantities):
     ``ess(method="tail", prob=(0.05, 0.95))`` against
     :func:`auditor.kernels.diagnostics.convergence` (``mcse_mean=False``: the same three measures);
 (b) arviz-stats' calls for every measure of :func:`~auditor.kernels.diagnostics.summarize`
-    (rhat rank and identity, ess bulk/tail/mean/sd/median/identity/quantile x3, mcse
+    (rhat rank, identity and split, ess bulk/tail/mean/sd/median/identity/quantile x3, mcse
     mean/sd/median/quantile x3) against ``summarize``;
 (c) the "floor": one ``np.sort`` along the draws plus one ``scipy.fft.rfft`` along the draws
     (zero-padded to ``next_fast_len(2 * draws)``, as an autocovariance needs; ``workers=-1``) of
@@ -93,6 +93,7 @@ def arviz_full(x: np.ndarray) -> dict[str, np.ndarray]:
     out = {
         "rhat_rank": az.rhat(x, method="rank", **axes),
         "rhat_raw": az.rhat(x, method="identity", **axes),
+        "rhat_split": az.rhat(x, method="split", **axes),
         "ess_bulk": az.ess(x, method="bulk", **axes),
         "ess_tail": az.ess(x, method="tail", prob=(0.05, 0.95), **axes),
         "ess_mean": az.ess(x, method="mean", **axes),

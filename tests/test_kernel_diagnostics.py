@@ -124,6 +124,7 @@ def arviz_measures(x: np.ndarray, quantiles=QUANTILES) -> dict[str, np.ndarray]:
             "rhat_bulk": az.rhat(x, method="z_scale", **kw),
             "rhat_folded": az.rhat(x, method="folded", **kw),
             "rhat_raw": az.rhat(x, method="identity", **kw),
+            "rhat_split": az.rhat(x, method="split", **kw),
             "ess_bulk": az.ess(x, method="bulk", **kw),
             "ess_tail": az.ess(x, method="tail", prob=(0.05, 0.95), **kw),
             "ess_mean": az.ess(x, method="mean", **kw),
@@ -209,6 +210,34 @@ def test_matches_arviz_stats(case):
     # Source: arviz-stats (oracle), to floating-point tolerance, NaN where it gives NaN.
     x = CASES[case]
     assert_same(summarize(x, quantiles=QUANTILES), arviz_measures(x))
+
+
+def test_split_rhat_sees_a_drift_that_unsplit_rhat_misses():
+    # Source: Gelman et al. (2013), BDA3 section 11.4: chains that drift the same way agree
+    # with each other (unsplit R-hat near 1), but their first and second halves do not.
+    rng = np.random.default_rng(11)
+    drift = np.linspace(-2, 2, 200)[None, :, None] + rng.normal(size=(4, 200, 3))
+    ours = summarize(drift)
+    assert (ours["rhat_raw"] < 1.01).all() and (ours["rhat_split"] > 1.2).all()
+    theirs = arviz_measures(drift)
+    np.testing.assert_allclose(ours["rhat_split"], theirs["rhat_split"], rtol=1e-9)
+
+
+def test_draw_summaries_are_numpys():
+    # Source: numpy's mean, std (ddof 1), min and max of the pooled draws; NaN for a quantity
+    # with a NaN draw, as every measure of the kernel.
+    from auditor.kernels.diagnostics import DRAW_SUMMARIES
+
+    bad = CASES["NaN and infinite draws"][:, :, [0, 2, 5]]  # one NaN, one inf, both infs
+    x = np.concatenate([CASES["normal 4x100x12"][:, :30, :3], bad], axis=2)
+    got = diagnose_block(x, measures=DRAW_SUMMARIES)
+    pooled = x.reshape(-1, x.shape[2])
+    with np.errstate(invalid="ignore"):
+        want = {"draws_mean": pooled.mean(axis=0), "draws_sd": pooled.std(axis=0, ddof=1),
+                "draws_min": pooled.min(axis=0), "draws_max": pooled.max(axis=0)}
+    want = {k: np.where(np.isnan(pooled).any(axis=0), np.nan, v) for k, v in want.items()}
+    for name, values in want.items():
+        np.testing.assert_allclose(got[name], values, rtol=1e-12, equal_nan=True, err_msg=name)
 
 
 def test_undefined_cases_are_nan_as_in_arviz_stats():

@@ -5,7 +5,8 @@ the hits marked inline (``expect: <rule-id>`` in a program comment, at that line
 and in ``expect.toml`` (``[[hit]]`` tables; ``exact = false`` allows more).
 Entries git cannot hold (FIFOs, link loops) are listed in ``expect.toml`` as
 ``[[setup]]`` tables (``fifo = "name"``, or ``link = "name"`` with ``to =
-"target"``) and made in a copy of the case before it is audited.
+"target"``) and made in a copy of the case before it is audited. Further folders
+``cases/good-<label>`` and ``cases/bad-<label>`` are held to the same rules.
 """
 
 from __future__ import annotations
@@ -84,6 +85,18 @@ def _hits(case: Path, rule_id: str, tmp_path: Path) -> list[Finding]:
 CASES = [r for r in RULES if r.id not in ENGINE_ONLY]
 
 
+def _more_cases(kind: str) -> list[tuple]:
+    """Further case folders beside ``cases/<kind>``: ``cases/<kind>-<label>`` (for example a
+    rule's synthetic cases in ``bad`` and real sampler runs in ``bad-pystan``)."""
+    out = []
+    for rule in CASES:
+        folder = rule.folder / "cases"
+        for case in sorted(folder.glob(f"{kind}-*")) if folder.is_dir() else []:
+            if case.is_dir():
+                out.append(pytest.param(rule, case, id=f"{rule.id}:{case.name}"))
+    return out
+
+
 def test_every_rule_has_cases():
     # examples-to-follow.md pattern 4: each rule keeps a good and a bad case.
     for rule in RULES:
@@ -99,9 +112,23 @@ def test_good_case_has_no_hit(rule, tmp_path):
     assert hits == [], [f.message for f in hits]
 
 
+@pytest.mark.parametrize("rule,case", _more_cases("good"))
+def test_further_good_cases_have_no_hit(rule, case, tmp_path):
+    hits = _hits(case, rule.id, tmp_path)
+    assert hits == [], [f.message for f in hits]
+
+
 @pytest.mark.parametrize("rule", CASES, ids=[r.id for r in CASES])
 def test_bad_case_hits_where_marked(rule, tmp_path):
-    case = rule.folder / "cases" / "bad"
+    _check_bad_case(rule, rule.folder / "cases" / "bad", tmp_path)
+
+
+@pytest.mark.parametrize("rule,case", _more_cases("bad"))
+def test_further_bad_cases_hit_where_marked(rule, case, tmp_path):
+    _check_bad_case(rule, case, tmp_path)
+
+
+def _check_bad_case(rule, case: Path, tmp_path: Path) -> None:
     expected, exact = _expected(case, rule.id)
     assert expected, f"{rule.id}: bad case marks no expected hit"
     hits = _hits(case, rule.id, tmp_path)

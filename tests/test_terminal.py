@@ -20,7 +20,7 @@ def test_layout_and_content():
     # Stage headings appear in workflow order; the divergence finding shows its numbers.
     assert text.index("\ninputs\n") < text.index("\nsampling\n")
     assert "sampling.divergences" in text and "9 of 800 transitions" in text
-    assert "fix: Rewrite hierarchical parts in non-centered form" in text
+    assert "fix: Raise adapt_delta (now 0.8) to 0.95" in text  # the synthetic case: no hierarchy
     assert any(ln.startswith("1 error, ") and "exit 1" in ln for ln in lines)
     assert "qualified statistician" in lines[-1]
     assert "\x1b[" not in text

@@ -13,9 +13,13 @@ from collections.abc import Iterator
 import numpy as np
 import xarray as xr
 
-from auditor.diagnostics import quantity_label
+from auditor.diagnostics import quantity_labels
 
 _SAMPLE_DIMS = ("chain", "draw")
+
+
+def _numeric(da: xr.DataArray) -> bool:
+    return np.issubdtype(da.dtype, np.number) and set(_SAMPLE_DIMS) <= set(da.dims)
 
 
 def iter_quantities(
@@ -24,24 +28,24 @@ def iter_quantities(
     """Yield ``(quantity, draws)`` for every numeric scalar quantity; draws are (chain, draw)."""
     for var in ds.data_vars:
         da = ds[var]
-        if not np.issubdtype(da.dtype, np.number) or not set(_SAMPLE_DIMS) <= set(da.dims):
+        if not _numeric(da):
             continue
-        values = da.transpose("chain", "draw", ...).values.astype(float)
-        shape = values.shape[2:]
-        if not shape:
-            yield str(var), values
-            continue
-        for index in np.ndindex(*shape):
-            label = quantity_label(str(var), da, index, one_based)
-            yield label, values[(slice(None), slice(None), *index)]
+        values = da.transpose("chain", "draw", ...).values
+        flat = values.reshape(values.shape[0], values.shape[1], -1)
+        for k, label in enumerate(quantity_labels(str(var), da, one_based)):
+            yield label, flat[:, :, k].astype(float)
 
 
 def quantity_draws(ds: xr.Dataset, quantity: str, one_based: bool = False) -> np.ndarray | None:
     """Draws of ``quantity`` as a (chain, draw) float array, or ``None`` when absent."""
     var = quantity.split("[", 1)[0]
-    if var not in ds.data_vars:
+    if var not in ds.data_vars or not _numeric(ds[var]):
         return None
-    for name, values in iter_quantities(ds[[var]], one_based):
-        if name == quantity:
-            return values
-    return None
+    da = ds[var]
+    labels = quantity_labels(var, da, one_based)
+    try:
+        k = labels.index(quantity)
+    except ValueError:
+        return None
+    values = da.transpose("chain", "draw", ...).values
+    return values.reshape(values.shape[0], values.shape[1], -1)[:, :, k].astype(float)

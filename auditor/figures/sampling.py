@@ -11,7 +11,8 @@
 - :func:`energy`: marginal energy against energy transitions, both centered, with
   E-BFMI per chain (Betancourt 2016, arXiv:1604.00695).
 
-Numbers come from arviz-stats where it has them (ranks, E-BFMI).
+Ranks for the rank plots come from arviz-stats (a plotting helper); E-BFMI from
+:mod:`auditor.kernels.chains`, the number the rule reports.
 """
 
 from __future__ import annotations
@@ -355,17 +356,16 @@ def divergence_figures(ctx: RuleContext, findings: list[Finding]) -> list[Figure
 
 
 def energy_figures(ctx: RuleContext, findings: list[Finding]) -> list[Figure]:
-    """The energy figure with E-BFMI per chain (computed by arviz-stats)."""
+    """The energy figure with E-BFMI per chain (computed by auditor.kernels.chains)."""
     stats = ctx.analysis.group("sample_stats")
     if not findings or _max_figures(ctx) < 1 or stats is None or "energy" not in stats.data_vars:
         return []
-    import arviz_stats as azs
+    from auditor.kernels.chains import ebfmi
 
     da = stats["energy"].transpose("chain", "draw").astype(float)
     if da.sizes["draw"] < 3 or not np.all(np.isfinite(da.values)):
         return []  # E-BFMI is undefined with missing energies; the check reports that
-    bfmi = np.asarray(azs.bfmi(da.to_dataset(name="energy"), group=None)["energy"].values,
-                      dtype=float).reshape(-1)
+    bfmi = ebfmi(da.values)
     threshold = next(
         (float(v) for k, v in sorted(ctx.thresholds.items())
          if "bfmi" in k.lower() and isinstance(v, int | float)),

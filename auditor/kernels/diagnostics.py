@@ -8,6 +8,8 @@ package ``posterior`` after 1.6.0 and in arviz-stats):
   folded draws ``|x - median|``; ``rhat_rank``: the larger of the two (rank-normalized R-hat);
 - ``rhat_raw``: the classic R-hat of Gelman & Rubin (1992) on the unsplit chains, as
   ``posterior::rhat_basic(x, split = FALSE)`` (that is what the reference table holds);
+  ``rhat_split``: the classic R-hat of the split chains (Gelman et al. 2013, BDA3 section 11.4;
+  ``posterior::rhat_basic(x)``, arviz-stats' ``rhat(method="split")``);
 - ``ess_bulk`` (ESS of the rank-normalized split chains) and ``ess_tail`` (the smaller ESS of
   the indicators ``x <= q05`` and ``x <= q95``);
 - ``ess_mean`` (split chains), ``ess_sd`` (ESS of ``(x - mean)^2``), ``ess_median``,
@@ -55,6 +57,10 @@ CONVERGENCE: tuple[str, ...] = ("rhat_rank", "ess_bulk", "ess_tail", "mcse_mean"
 #: Largest working-memory budget of one block, in bytes (the default is also at most half the
 #: draws array, so that the peak stays under twice the array).
 DEFAULT_BLOCK_BYTES = 64 * 2**20
+#: Plain summaries of the draws that :func:`diagnose_block` also gives when asked (they are
+#: by-products of its sort and copy): mean, sd (ddof 1), smallest and largest draw. Not part of
+#: :func:`measure_names`; NaN for a quantity with a NaN draw, as every measure.
+DRAW_SUMMARIES: tuple[str, ...] = ("draws_mean", "draws_sd", "draws_min", "draws_max")
 #: Minimum draws per chain for any measure, chains for R-hat (arviz-stats' ``not_valid``).
 MIN_DRAWS, MIN_CHAINS_RHAT = 4, 2
 
@@ -78,7 +84,7 @@ def measure_names(quantiles: Iterable[float] = DEFAULT_QUANTILES) -> tuple[str, 
     """
     labels = [prob_label(p) for p in quantiles]
     return (
-        "rhat_rank", "rhat_bulk", "rhat_folded", "rhat_raw",
+        "rhat_rank", "rhat_bulk", "rhat_folded", "rhat_raw", "rhat_split",
         "ess_bulk", "ess_tail", "ess_mean", "ess_sd", "ess_median", "ess_raw",
         *(f"ess_quantile_{label}" for label in labels),
         "mcse_mean", "mcse_sd", "mcse_median",
@@ -116,7 +122,7 @@ class _Plan:
 
     def __init__(self, names: Iterable[str], quantiles: Iterable[float]) -> None:
         self.quantiles = tuple(float(p) for p in quantiles)
-        known = set(measure_names(self.quantiles))
+        known = set(measure_names(self.quantiles)) | set(DRAW_SUMMARIES)
         self.names = tuple(names)
         unknown = [n for n in self.names if n not in known]
         if unknown:
@@ -125,6 +131,7 @@ class _Plan:
         self.bulk_z = bool(want & {"rhat_rank", "rhat_bulk", "ess_bulk"})
         self.folded_z = bool(want & {"rhat_rank", "rhat_folded"})
         self.raw_rhat = "rhat_raw" in want
+        self.split_rhat = "rhat_split" in want
         self.raw_ess = "ess_raw" in want
         # Series whose split-chain ESS is needed, in stack order; indicator series by prob.
         series: list[str | float] = []
@@ -202,13 +209,14 @@ def bytes_per_quantity(
     """Working memory one quantity needs in :func:`diagnose_block` (a generous estimate).
 
     In arrays of ``chains * draws`` values (8 bytes): the block copy, its sort keys, order and
-    sorted values, the scores and five folded-order buffers (10; 14 for an odd draw count); per
+    sorted values, the scores, five folded-order buffers and the split chains' variance
+    temporary (11; 15 for an odd draw count); per
     series the padded series, its spectrum and at most as much again for series redone with
     full padding (3 each, times the padding ratio); the same for the unsplit ``ess_raw`` series.
     """
     half = max(draws // 2, 1)
     split_ratio = fft_size(half, _first_lags(half, lags)) / half
-    units = 10 + (4 if draws % 2 else 0) + 3 * n_series * split_ratio
+    units = 11 + (4 if draws % 2 else 0) + 3 * n_series * split_ratio
     if raw_ess:
         units += 3 * fft_size(max(draws, 1), _first_lags(draws, lags)) / max(draws, 1)
     return int(units * chains * max(draws, 1) * 8)
@@ -238,7 +246,8 @@ def diagnose_block(
     quantiles : iterable of float, default (0.01, 0.1, 0.3)
         Probabilities of ``ess_quantile_<p>`` and ``mcse_quantile_<p>``.
     measures : iterable of str, optional
-        Names to compute (see :func:`measure_names`); all of them by default.
+        Names to compute (see :func:`measure_names`, and :data:`DRAW_SUMMARIES`); all of
+        :func:`measure_names` by default.
     lags : int or None, default -1
         Autocovariance lags of the first FFT pass (-1: an eighth of the series, at least 16;
         None: all). Series whose Geyer truncation lies further out are redone with every lag,
@@ -280,6 +289,13 @@ def _diagnose(
     order = ws("order", (n_q, size), np.int64)
     ordered = ws("sorted", (n_q, size))
     sort_rows(flat, order, ordered, ws("keys", (n_q, size), np.int64))
+    results: dict[str, np.ndarray] = {}
+    if "draws_min" in plan.names:
+        results["draws_min"] = ordered[:, 0].copy()
+    if "draws_max" in plan.names:
+        results["draws_max"] = ordered[:, -1].copy()
+    if "draws_mean" in plan.names:
+        results["draws_mean"] = flat.mean(axis=1)
     invalid = np.isnan(ordered[:, 0]) | np.isnan(ordered[:, -1])
     if invalid.any():
         # Any NaN makes every measure NaN (arviz-stats); zeros keep the arithmetic quiet.
@@ -309,6 +325,9 @@ def _diagnose(
         del mapped, keep
 
     rhat_ok = n_chains >= MIN_CHAINS_RHAT
+    if plan.split_rhat and rhat_ok:
+        # Classic split R-hat on the draws themselves, before anything is centered in place.
+        rhat_split = _rhat(np.mean(split, axis=-1), np.var(split, axis=-1, ddof=1), half)
     # Series for the FFT live in a zero-padded buffer: the FFT then needs no padded copy.
     padded = fft_size(half, _first_lags(half, lags))
     stack = ws("series", (plan.n_series, n_q, 2 * n_chains, padded))
@@ -371,8 +390,10 @@ def _diagnose(
         spread = series.max(axis=(1, 2)) - series.min(axis=(1, 2))
         constant[slot["sd"]] = spread < CONSTANT_RANGE
         means[slot["sd"]] = _center(series)
-    if "mcse_mean" in plan.names:
+    if "mcse_mean" in plan.names or "draws_sd" in plan.names:
         sd = np.std(flat, axis=1, ddof=1)
+        if "draws_sd" in plan.names:
+            results["draws_sd"] = sd
 
     # Unsplit chains: classic R-hat and raw ESS; the block copy is centered in place now.
     if (plan.raw_rhat and rhat_ok) or plan.raw_ess:
@@ -399,7 +420,6 @@ def _diagnose(
             spectrum,
         ).reshape(plan.n_series, n_q)
 
-    results: dict[str, np.ndarray] = {}
     if rhat_ok:
         if plan.bulk_z:
             results["rhat_bulk"] = rhat_bulk
@@ -410,6 +430,8 @@ def _diagnose(
             results["rhat_rank"] = np.where(rhat_folded > rhat_bulk, rhat_folded, rhat_bulk)
         if plan.raw_rhat:
             results["rhat_raw"] = rhat_raw
+        if plan.split_rhat:
+            results["rhat_split"] = rhat_split
     if plan.raw_ess:
         results["ess_raw"] = ess_raw
     if "bulk" in slot:

@@ -1,20 +1,19 @@
-"""E-BFMI per chain from the energy statistic (computed by arviz-stats)."""
+"""E-BFMI per chain from the energy statistic (computed by auditor.kernels.chains)."""
 
 from __future__ import annotations
 
 import numpy as np
-import xarray as xr
+
+from auditor.kernels.chains import ebfmi
+from auditor.rulekit import sample_stat
 
 
 def check(ctx):
     """One finding listing the chains whose E-BFMI is below ``min_ebfmi``."""
-    ds = ctx.analysis.group("sample_stats")
-    if ds is None or "energy" not in ds.data_vars or ds.sizes.get("draw", 0) < 3:
+    energy = sample_stat(ctx, "energy")
+    if energy is None or energy.ndim != 2 or energy.shape[1] < 3 or energy.dtype.kind not in "fiu":
         return
-    import arviz_stats as azs
-
-    energy = xr.Dataset({"energy": ds["energy"].astype(float)})
-    values = np.asarray(azs.bfmi(energy)["energy"].values).reshape(-1)
+    values = ebfmi(energy.astype(float))
     limit = float(ctx.thresholds["min_ebfmi"])
     low = [(i + 1, float(v)) for i, v in enumerate(values) if np.isfinite(v) and v < limit]
     if not low:

@@ -4,10 +4,19 @@ from __future__ import annotations
 
 from collections import defaultdict
 
+from auditor.rulekit import many_short_chains
+
 
 def check(ctx):
-    """One finding per variable with an R-hat above ``max_rhat`` (worst element named)."""
+    """One finding per variable with an R-hat above ``max_rhat`` (worst element named).
+
+    Nothing for many short chains, where sampling.nested-rhat replaces this rule.
+    """
     limit = float(ctx.thresholds["max_rhat"])
+    min_chains = int(ctx.thresholds["nested_min_chains"])
+    if min_chains > 0 and many_short_chains(ctx, min_chains,
+                                            int(ctx.thresholds["nested_max_draws"])):
+        return  # many short chains: sampling.nested-rhat judges convergence
     by_var = defaultdict(list)
     for row in ctx.diagnostics.rows:
         if row["constant"] or row["rhat"] is None:
