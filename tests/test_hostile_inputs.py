@@ -175,6 +175,8 @@ CONFIG_TYPES = [
     ('max_table_rows = 1.5', "'max_table_rows' must be a whole"),
     ('page_size = 4', "'page_size' must be one of"),
     ('max_input_share = 2', "'max_input_share' must be a number above 0"),
+    ('policy = 3', "'policy' must be a string"),
+    ('accepted = ["a.toml"]', "'accepted' must be a string"),
     ('rules = 1', "'rules' must be a table"), ('analysis = 1', "'analysis' must be an array"),
     ('[rules."sampling.rhat"]\nmax_rhat = "1.05"', "'max_rhat' must be a finite number"),
     ('[rules."sampling.rhat"]\nmax_rhat = nan', "'max_rhat' must be a finite number"),

@@ -102,6 +102,28 @@ def _input_cases(rng: np.random.Generator) -> None:
         "parameters {\n  real alpha  // expect: inputs.model-syntax\n}\n"
         "model {\n  alpha ~ normal(0, 1);\n}\n")
     _boundary_cases(rng, iid)
+    _gate_cases(rng, iid)
+
+
+def _gate_cases(rng: np.random.Generator, iid: dict) -> None:
+    """Cases of the rules the engine emits for policies and accepted findings (issue 14)."""
+    inputs = RULES / "inputs"
+    for rule in ("stage-not-checked", "acceptance"):
+        _case(rule, "good", iid, _healthy_stats(rng), stage_dir=inputs)
+    # A run without its program under the submission policy: the program stage (and
+    # others) are required but could not be checked.
+    folder = _case("stage-not-checked", "bad", iid, _healthy_stats(rng), stage_dir=inputs)
+    (folder / "bayes-auditor.toml").write_text('policy = "submission"\n')
+    (folder / "expect.toml").write_text(
+        'exact = false\n[[hit]]\nquantity = "program"\npath = "fit-1.csv"\n')
+    # An acceptance of a finding this run does not have.
+    folder = _case("acceptance", "bad", iid, _healthy_stats(rng), stage_dir=inputs)
+    (folder / "bayes-auditor-accepted.toml").write_text(
+        '[[accept]]\nrule = "sampling.divergences"\nanalysis = "fit"\n'
+        'reason = "a handful of divergences in the tails, checked by hand"\n'
+        'by = "the lab\'s reviewer"\n')
+    (folder / "expect.toml").write_text(
+        '[[hit]]\npath = "bayes-auditor-accepted.toml"\nline = 1\n')
 
 
 def _boundary_cases(rng: np.random.Generator, iid: dict) -> None:
