@@ -223,6 +223,14 @@ def _assemble(spec: AnalysisSpec, gate: Boundary | None = None) -> Analysis:
             )
     post: dict[str, xr.Dataset] = {}
     attrs: dict = {}
+    if spec.tree is not None:
+        from auditor.loaders.datatree_file import normalize_tree
+
+        loaded = normalize_tree(spec.tree, Path(f"{spec.name} (in memory)"))
+        analysis.settings = loaded.settings
+        analysis.problems.extend(_problems(loaded.problems))
+        post = _groups(loaded.tree)
+        attrs = dict(loaded.tree.attrs) if loaded.tree is not None else {}
     if spec.draws:
         missing = [p for p in spec.draws if not _exists(p)]
         for p in missing:

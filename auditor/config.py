@@ -426,7 +426,7 @@ def _apply(cfg: Config, table: dict[str, Any], origin: str) -> None:
 
 
 def load_config(root: Path, config_file: Path | None, cli: dict[str, Any],
-                boundary: Boundary | None = None) -> Config:
+                boundary: Boundary | None = None, find: bool = True) -> Config:
     """Build the effective configuration for the project at ``root``.
 
     Parameters
@@ -442,6 +442,9 @@ def load_config(root: Path, config_file: Path | None, cli: dict[str, Any],
         The project boundary (default: one rooted at ``root``). Paths in the
         file are resolved through it; those it refuses become problems of their
         analysis (``AnalysisSpec.problems``), never reads.
+    find
+        Look for a configuration file in ``root`` when none is given (the Python
+        API auditing draws in memory does not).
 
     Raises
     ------
@@ -457,7 +460,7 @@ def load_config(root: Path, config_file: Path | None, cli: dict[str, Any],
             raise ConfigError(f"{display(path)}: configuration file not found")
         reader = Boundary.unconfined(boundary.max_bytes)
     else:
-        path = find_config_file(root, boundary)
+        path = find_config_file(root, boundary) if find else None
         reader = boundary
     if path is not None:
         table = _read_table(path, reader)

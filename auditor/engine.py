@@ -506,14 +506,7 @@ def run_audit(paths: list[Path], config_path: Path | None = None,
     if missing:
         raise NothingToAudit(f"{display(missing[0])}: no such file or folder")
     root = project_root(paths)
-    gate = Boundary(root, extra=tuple(allow_read), max_bytes=default_max_bytes())
-    cfg = load_config(root, config_path, overrides or {}, gate)
-    gate.max_bytes = default_max_bytes(cfg.max_input_share)
-    cfg.only_rules = only_rules
-    policy = _policy(cfg, gate)
-    apply_policy(cfg, policy)
-    rules = all_rules()
-    check_rule_options(cfg, rules)
+    gate, cfg, rules, policy = _prepare(root, config_path, overrides, only_rules, allow_read)
     specs, problems = analysis_specs(paths, cfg, root, gate)
     if not specs:
         raise NothingToAudit(
@@ -524,6 +517,33 @@ def run_audit(paths: list[Path], config_path: Path | None = None,
         specs = _changed_since(specs, since, cfg, gate)
         if not specs:
             raise NothingToAudit(f"{root}: no analysis has inputs that changed since {since}")
+    return audit_specs(specs, problems, root, gate, cfg, rules, policy,
+                       baseline=baseline, gate_new_only=gate_new_only, today=today,
+                       progress=progress)
+
+
+def _prepare(root: Path, config_path: Path | None, overrides: dict[str, Any] | None,
+             only_rules: set[str] | None, allow_read: tuple[Path, ...], find: bool = True
+             ) -> tuple[Boundary, Config, list[RuleMeta], Policy]:
+    """The boundary, the effective configuration (policy beneath it) and the rules."""
+    gate = Boundary(root, extra=tuple(allow_read), max_bytes=default_max_bytes())
+    cfg = load_config(root, config_path, overrides or {}, gate, find=find)
+    gate.max_bytes = default_max_bytes(cfg.max_input_share)
+    cfg.only_rules = only_rules
+    policy = _policy(cfg, gate)
+    apply_policy(cfg, policy)
+    rules = all_rules()
+    check_rule_options(cfg, rules)
+    return gate, cfg, rules, policy
+
+
+def audit_specs(specs: list[AnalysisSpec], problems: list[InputProblem], root: Path,
+                gate: Boundary, cfg: Config, rules: list[RuleMeta], policy: Policy, *,
+                baseline: Path | None = None, gate_new_only: bool = False,
+                today: dt.date | None = None,
+                progress: Callable[[str, int, int], None] | None = None) -> AuditResult:
+    """Audit the analyses ``specs`` (the part of :func:`run_audit` after finding them;
+    the Python API calls it with analyses whose draws are already in memory)."""
     project = Project(root=root, problems=problems)
     # First pass, one analysis at a time: load, audit, keep the compact result,
     # release the draws, so memory is bounded by the largest analysis.
@@ -566,9 +586,9 @@ def run_audit(paths: list[Path], config_path: Path | None = None,
     )
     result.project_findings += _acceptances(result, cfg, gate, project,
                                             today or dt.date.today())
-    if only_rules is not None:
+    if cfg.only_rules is not None:
         result.project_findings = [f for f in result.project_findings
-                                   if f.rule_id in only_rules]
+                                   if f.rule_id in cfg.only_rules]
     if baseline is not None:
         result.baseline = _baseline(result, baseline)
     return result

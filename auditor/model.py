@@ -103,6 +103,8 @@ class AnalysisSpec:
     problems: list[InputProblem] = field(default_factory=list)
     #: Marked ``chosen = true`` in the configuration: the model the analyst reports.
     chosen: bool = False
+    #: Draws already in memory (a DataTree handed to the Python API) instead of files.
+    tree: Any = None
 
 
 @dataclass

@@ -133,6 +133,34 @@ class AuditResult:
     gate_new_only: bool = False
 
     @property
+    def findings(self) -> list[Finding]:
+        """Every finding, project-level first (same as :attr:`all_findings`)."""
+        return self.all_findings
+
+    def to_dataframe(self, what: str = "findings") -> Any:
+        """A pandas DataFrame of ``findings``, ``diagnostics``, ``coverage`` or ``loo``.
+
+        pandas is imported here, on request only.
+        """
+        import pandas as pd
+
+        rows: list[dict[str, Any]] = []
+        if what == "findings":
+            for f in self.all_findings:
+                rows.append({"rule": f.rule_id, "severity": f.severity.value,
+                             "stage": f.stage, "analysis": f.analysis,
+                             "quantity": f.quantity, "message": f.message,
+                             "path": f.location.path if f.location else None,
+                             "line": f.location.line if f.location else None,
+                             "accepted": f.accepted is not None, "baseline": f.baseline})
+        elif what in ("diagnostics", "coverage", "loo"):
+            for a in self.analyses:
+                rows.extend({"analysis": a.name, **row} for row in getattr(a, what))
+        else:
+            raise ValueError(f"what must be findings, diagnostics, coverage or loo, not {what!r}")
+        return pd.DataFrame(rows)
+
+    @property
     def all_findings(self) -> list[Finding]:
         """Project findings, then each analysis's, in report order."""
         out = sorted(self.project_findings, key=Finding.sort_key)

@@ -264,6 +264,15 @@ def load_datatree(path: Path, gate: Boundary | None = None) -> Loaded:
     raw, engine = _read(path, problems, gate)
     if raw is None:
         return Loaded(tree=None, problems=problems)
+    return normalize_tree(raw, path, problems,
+                          "datatree-zarr" if engine == "zarr" else "datatree-netcdf")
+
+
+def normalize_tree(raw: xr.DataTree, path: Path, problems: list[LoadProblem] | None = None,
+                   source_format: str = "datatree-memory") -> Loaded:
+    """Normalize a DataTree already in memory (read from ``path``, or handed to the
+    Python API; ``path`` then only names it in problems)."""
+    problems = [] if problems is None else problems
     groups = {name: raw[name].to_dataset() for name in raw.children}
     known = [g for g in groups if g in DRAWS_GROUPS or g in OTHER_GROUPS]
     if not known:
@@ -292,7 +301,7 @@ def load_datatree(path: Path, gate: Boundary | None = None) -> Loaded:
                 groups[name] = normalize_sample_stats(groups[name], max_depth=settings.max_depth)
     tree = xr.DataTree.from_dict(groups)
     tree.attrs.update(raw.attrs)
-    tree.attrs["source_format"] = "datatree-zarr" if engine == "zarr" else "datatree-netcdf"
+    tree.attrs["source_format"] = source_format
     if settings.library:
         tree.attrs.setdefault("inference_library", settings.library)
     if settings.library_version:

@@ -43,6 +43,13 @@ def render(result: AuditResult, *, print_mode: bool = False, page_size: str = "A
                            stage_order=list(view.stage_order))
 
 
+def render_summary(result: AuditResult, top: int = 10) -> str:
+    """A short HTML fragment of the audit (verdict, analyses, top findings), for a
+    notebook; escaped like the report."""
+    view = build_view(result, top=top)
+    return environment().get_template("notebook.html.j2").render(v=view)
+
+
 def write(result: AuditResult, out_dir: Path) -> Path:
     """Write ``audit.html`` into ``out_dir`` and return its path."""
     out_dir.mkdir(parents=True, exist_ok=True)

@@ -10,7 +10,10 @@
    checked, partly checked, not checked with the missing input, not applicable)
    and ``loo`` (PSIS-LOO and WAIC per observed variable); at the top level
    ``comparisons`` (analyses of the same data: elpd_loo, SE, difference to the
-   best with its paired SE, p_loo, stacking weights).
+   best with its paired SE, p_loo, stacking weights); ``policy`` (name, hash,
+   files), ``accepted_file``, ``baseline`` (new, unchanged, gone), per finding
+   ``accepted`` (reason, by, expires) and ``baseline`` (new or unchanged), and
+   ``gate.new_only`` and ``summary.accepted``.
 """
 
 from __future__ import annotations
@@ -59,6 +62,8 @@ def finding_dict(f: Finding) -> dict[str, Any]:
         "evidence": json_safe(f.evidence),
         "fix": f.fix,
         "location": loc,
+        "accepted": json_safe(f.accepted),
+        "baseline": f.baseline,
     }
 
 
@@ -69,8 +74,12 @@ def to_dict(result: AuditResult) -> dict[str, Any]:
         "tool": {"name": result.tool, "version": result.version},
         "project": result.project_name,
         "gate": {"level": result.gate, "reached": result.gate_reached,
-                 "exit_status": result.exit_status},
-        "summary": {**result.counts(), "analyses": len(result.analyses)},
+                 "exit_status": result.exit_status, "new_only": result.gate_new_only},
+        "summary": {**result.counts(), "accepted": result.accepted_count,
+                    "analyses": len(result.analyses)},
+        "policy": json_safe(result.policy),
+        "accepted_file": result.accepted_file,
+        "baseline": json_safe(result.baseline),
         "caution": result.caution,
         "project_findings": [finding_dict(f) for f in sorted(result.project_findings,
                                                               key=Finding.sort_key)],

@@ -77,13 +77,18 @@ def _fallback_descriptor(f: Finding) -> dict[str, Any]:
     }
 
 
-def _fingerprint(f: Finding) -> str:
+def _fingerprint(f: Finding, occurrence: int = 0) -> str:
+    """Stable across runs: rule, analysis, quantity and file, not the message (whose
+    numbers change); the n-th finding with the same key gets ``n`` added, so that code
+    scanning tracks each one."""
     loc: Location | None = f.location
     parts = [f.rule_id, f.analysis or "", f.quantity or "", loc.path if loc else ""]
+    if occurrence:
+        parts.append(str(occurrence))
     return hashlib.sha256("\x1f".join(parts).encode("utf-8")).hexdigest()
 
 
-def _result(f: Finding, index: int) -> dict[str, Any]:
+def _result(f: Finding, index: int, occurrence: int = 0) -> dict[str, Any]:
     out: dict[str, Any] = {
         "ruleId": f.rule_id,
         "ruleIndex": index,
@@ -98,7 +103,13 @@ def _result(f: Finding, index: int) -> dict[str, Any]:
                 region["startColumn"] = int(f.location.column)
             physical["region"] = region
         out["locations"] = [{"physicalLocation": physical}]
-    out["partialFingerprints"] = {FINGERPRINT_KEY: _fingerprint(f)}
+    out["partialFingerprints"] = {FINGERPRINT_KEY: _fingerprint(f, occurrence)}
+    if f.accepted is not None:
+        # SARIF 2.1.0, 3.35 "suppressions": accepted by the project, with its reason.
+        out["suppressions"] = [{"kind": "external", "status": "accepted",
+                                "justification": str(f.accepted.get("reason", ""))}]
+    if f.baseline is not None:
+        out["baselineState"] = f.baseline  # SARIF 2.1.0, 3.27.24: "new" or "unchanged"
     props: dict[str, Any] = {"stage": f.stage, "evidence": json_safe(f.evidence)}
     if f.analysis is not None:
         props["analysis"] = f.analysis
@@ -118,11 +129,14 @@ def build(result: AuditResult) -> dict[str, Any]:
         for alias in getattr(rule, "aliases", []) or []:
             index.setdefault(alias, index[rule.id])
     results = []
+    seen: dict[str, int] = {}
     for f in result.all_findings:
         if f.rule_id not in index:
             index[f.rule_id] = len(rules)
             rules.append(_fallback_descriptor(f))
-        results.append(_result(f, index[f.rule_id]))
+        base = _fingerprint(f)
+        results.append(_result(f, index[f.rule_id], seen.get(base, 0)))
+        seen[base] = seen.get(base, 0) + 1
     artifacts = [
         {
             "location": artifact_location(i.path),
@@ -157,6 +171,9 @@ def build(result: AuditResult) -> dict[str, Any]:
             "libraries": dict(sorted(result.libraries.items())),
             "settings": json_safe(result.config),
             "comparisons": json_safe(result.comparisons),
+            "policy": json_safe(result.policy),
+            "baseline": json_safe(result.baseline),
+            "acceptedCount": result.accepted_count,
             "coverage": {a.name: json_safe(a.coverage) for a in result.analyses},
         },
     }

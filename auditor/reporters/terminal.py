@@ -63,6 +63,69 @@ def _gap_text(c: dict) -> str:
     return f"{c['title'].lower()} {c['status']}: {_clip(c['note'], 140)}"
 
 
+def closing_line(result: AuditResult) -> str:
+    """The one-line summary: counts, accepted and baseline counts, policy, gate, exit."""
+    counts = result.counts()
+    reached = "reached" if result.gate_reached else "not reached"
+    extra = []
+    if result.accepted_count:
+        extra.append(f"{result.accepted_count} accepted")
+    if result.baseline is not None:
+        b = result.baseline
+        extra.append(f"{b['new']} new, {b['unchanged']} unchanged, {b['gone']} gone since "
+                     "the baseline")
+    policy = result.policy.get("name") if result.policy else None
+    gate = f"gate '{result.gate}'" + (" on new findings" if result.gate_new_only else "")
+    return (
+        f"{_plural(counts['error'], 'error')}, {_plural(counts['warning'], 'warning')}, "
+        f"{_plural(counts['note'], 'note')}"
+        + (f" ({'; '.join(extra)})" if extra else "")
+        + " in " + _plural(len(result.analyses), "analysis", "analyses")
+        + (f"; policy {policy}" if policy else "")
+        + f"; {gate} {reached} (exit {result.exit_status})"
+    )
+
+
+class _NoProgress:
+    """Progress for a stream that is not a terminal: nothing is shown."""
+
+    def __call__(self, what: str, done: int, total: int) -> None:
+        return None
+
+    def close(self) -> None:
+        return None
+
+
+class _BarProgress:
+    """A progress bar on a terminal (tqdm), per analysis and stage."""
+
+    def __init__(self, stream: TextIO) -> None:
+        from tqdm import tqdm
+
+        self.bar = tqdm(total=0, file=stream, leave=False, unit="analysis",
+                        dynamic_ncols=True, bar_format="{desc} {bar} {n_fmt}/{total_fmt}")
+
+    def __call__(self, what: str, done: int, total: int) -> None:
+        self.bar.total = total
+        self.bar.n = done
+        self.bar.set_description_str(_clip(what, 60))
+        self.bar.refresh()
+
+    def close(self) -> None:
+        self.bar.close()
+
+
+def terminal_progress(stream: TextIO) -> _NoProgress | _BarProgress:
+    """A progress callback for ``run_audit``: a bar on a terminal, silence otherwise (CI
+    logs and pipes stay clean)."""
+    if not getattr(stream, "isatty", lambda: False)():
+        return _NoProgress()
+    try:
+        return _BarProgress(stream)
+    except ImportError:
+        return _NoProgress()
+
+
 def render(result: AuditResult, colour: bool = False, written: list[Path] | None = None) -> str:
     """The terminal report as one string."""
     paint = _Painter(colour)
@@ -111,20 +174,18 @@ def render(result: AuditResult, colour: bool = False, written: list[Path] | None
             if f.location is not None:
                 where = f.location.path + (f":{f.location.line}" if f.location.line else "")
             scope = f"[{_clip(f.analysis, 40)}] " if f.analysis else ""
+            if f.baseline == "new":
+                scope = "new " + scope
             out.append(f"  {paint(f.severity.value.ljust(7), f.severity.value)} {f.rule_id}  "
                        f"{scope}{paint(_clip(where, 80), 'dim')}")
             out.append(f"          {_clip(f.message, 400)}")
-            out.append(f"          fix: {_clip(f.fix, 300)}")
-    counts = result.counts()
+            if f.accepted:
+                out.append(f"          accepted by {_clip(str(f.accepted.get('by')), 60)}: "
+                           f"{_clip(str(f.accepted.get('reason')), 200)}")
+            else:
+                out.append(f"          fix: {_clip(f.fix, 300)}")
     out.append("")
-    gate = result.gate
-    reached = "reached" if result.gate_reached else "not reached"
-    out.append(
-        f"{_plural(counts['error'], 'error')}, {_plural(counts['warning'], 'warning')}, "
-        f"{_plural(counts['note'], 'note')} in "
-        + _plural(len(result.analyses), "analysis", "analyses")
-        + f"; gate '{gate}' {reached} (exit {result.exit_status})"
-    )
+    out.append(closing_line(result))
     if written:
         out.append("reports: " + ", ".join(str(p) for p in written))
     out.append(paint("caution: " + result.caution, "dim"))

@@ -135,6 +135,10 @@ class FindingView:
     excerpt: tuple[ExcerptLine, ...]
     figures: tuple[FigureRef, ...] = ()
     analysis: str = ""
+    #: "accepted by <who> (until <date>): <reason>", or "" when not accepted.
+    accepted: str = ""
+    #: "new" or "unchanged" against a baseline report, or "".
+    baseline: str = ""
 
 
 @dataclass(frozen=True)
@@ -276,6 +280,12 @@ class ReportView:
     #: Stages not (fully) checked in any analysis, said once: "title status (note)".
     coverage_everywhere: tuple[str, ...] = ()
     comparisons: tuple[ComparisonView, ...] = ()
+    #: "name (sha256 …)" of the policy applied.
+    policy: str = ""
+    accepted_count: int = 0
+    #: "N new, N unchanged, N gone since the baseline", or "".
+    baseline: str = ""
+    gate_new_only: bool = False
 
 
 def _counts(findings: list[Finding]) -> dict[str, int]:
@@ -327,6 +337,13 @@ STAGE_CSS = {"checked": "cov-checked", "partly checked": "cov-partly",
              "not checked": "cov-missing", "not applicable": "cov-na"}
 HOW = {"configured": "named in the configuration", "program": "found in the model program",
        "group": "found in its DataTree group", "name": "found by its usual name"}
+
+
+def _accepted_text(accepted: dict | None) -> str:
+    if not accepted:
+        return ""
+    until = f" until {accepted['expires']}" if accepted.get("expires") else ""
+    return f"accepted by {accepted.get('by', '')}{until}: {accepted.get('reason', '')}"
 
 
 def coverage_text(a: AnalysisResult) -> str:
@@ -401,6 +418,8 @@ class _Builder:
             excerpt=excerpt,
             figures=refs,
             analysis=f.analysis or "",
+            accepted=_accepted_text(f.accepted),
+            baseline=f.baseline or "",
         )
 
     def stages(self, findings: list[Finding], prefix: str, a: AnalysisResult | None,
@@ -565,7 +584,9 @@ def build_view(result: AuditResult, top: int = 10, figure_scale: float = 1.0) ->
     ]
     rank = {"error": 0, "warning": 1, "note": 2}
     # Worst first; ties keep report order (stage, then analysis) by the stable sort.
-    top_findings = tuple(sorted(every, key=lambda f: rank[f.severity])[:top])
+    # Accepted findings are shown where they belong, not among the top ones.
+    top_findings = tuple(sorted((f for f in every if not f.accepted),
+                                key=lambda f: rank[f.severity])[:top])
     counts = result.counts()
     verdict = _verdict(counts, bool(result.analyses))
     label, text = VERDICTS[verdict]
@@ -590,4 +611,11 @@ def build_view(result: AuditResult, top: int = 10, figure_scale: float = 1.0) ->
         settings=settings_rows(result.config),
         coverage_everywhere=tuple(shared),
         comparisons=comparison_views(result),
+        policy=(f"{result.policy.get('name')} (sha256 {str(result.policy.get('sha256'))[:12]})"
+                if result.policy else ""),
+        accepted_count=result.accepted_count,
+        baseline=(f"{result.baseline['new']} new, {result.baseline['unchanged']} unchanged, "
+                  f"{result.baseline['gone']} gone since the baseline"
+                  if result.baseline else ""),
+        gate_new_only=result.gate_new_only,
     )
