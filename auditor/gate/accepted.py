@@ -130,7 +130,8 @@ def apply(findings: list[Finding], entries: list[Acceptance], today: dt.date) ->
                 f.accepted = e.as_dict()
                 break
     matched_any = {id(e) for e in entries if any(e.matches(f) for f in findings)}
-    unmatched = [e for e in entries if id(e) not in matched_any and e not in expired]
+    unmatched = [e for e in entries if id(e) not in matched_any and e not in expired
+                 and e not in incomplete]
     return Outcome(expired, unmatched, incomplete)
 
 
