@@ -179,6 +179,42 @@ def _cjs_sorted(bw: NDArray, cdf_p: NDArray, cdf_q: NDArray) -> NDArray[np.float
         return np.sqrt((np.maximum(pq, 0.0) + np.maximum(qp, 0.0)) / (p_int + q_int))
 
 
+def _cjs_many(x: NDArray[np.float64], weights: list[NDArray[np.float64]]
+              ) -> list[NDArray[np.float64]]:
+    """:func:`cjs_distance` of the quantities ``x`` (S, Q) for several weight vectors, each
+    block of quantities sorted once for all of them."""
+    s, n_q = x.shape
+    outs = [np.full(n_q, np.nan) for _ in weights]
+    if s < 2:
+        return outs
+    normalized = [w / w.sum() for w in weights]
+    equal = [bool(w.max() == w.min()) for w in normalized]
+    cdf_p = np.linspace(1 / s, 1 - 1 / s, s - 1)[:, None]
+    step = max(1, _BLOCK_BYTES // (10 * 8 * s))
+    for q0 in range(0, n_q, step):
+        q1 = min(n_q, q0 + step)
+        block = x[:, q0:q1]
+        finite = np.isfinite(block).all(axis=0)
+        order = np.argsort(block, axis=0, kind="stable")
+        xs = np.take_along_axis(block, order, axis=0)
+        bw = np.diff(xs, axis=0)
+        varies = finite & (xs[-1] > xs[0])
+        for out, w, same in zip(outs, normalized, equal, strict=True):
+            if same:
+                # Equal weights: the same distribution. The formula would give about
+                # sqrt(rounding error), 1e-7, not 0.
+                out[q0:q1] = np.where(varies, 0.0, np.nan)
+                continue
+            ws = w[order]
+            up = _cjs_sorted(bw, cdf_p, np.cumsum(ws, axis=0)[:-1])
+            # -x sorted is x sorted reversed: reversed bin widths and weights.
+            down = _cjs_sorted(bw[::-1], cdf_p, np.cumsum(ws[::-1], axis=0)[:-1])
+            res = np.maximum(up, down)
+            res[~finite] = np.nan
+            out[q0:q1] = res
+    return outs
+
+
 def cjs_distance(draws: ArrayLike, weights: ArrayLike) -> NDArray[np.float64]:
     """Cumulative Jensen-Shannon distance between the draws and the weighted draws.
 
@@ -201,34 +237,23 @@ def cjs_distance(draws: ArrayLike, weights: ArrayLike) -> NDArray[np.float64]:
         weights.
     """
     w = np.asarray(weights, dtype=np.float64).ravel()
-    s = w.size
-    x = _as_quantities(draws, s)
-    w = w / w.sum()
-    n_q = x.shape[1]
-    out = np.full(n_q, np.nan)
-    if s < 2:
-        return out
-    if w.max() == w.min():
-        # Equal weights: the distributions are the same. The formula would give about
-        # sqrt(rounding error), 1e-7, not 0.
-        spread = np.ptp(x, axis=0)
-        return np.where(np.isfinite(spread) & (spread > 0), 0.0, np.nan)
-    cdf_p = np.linspace(1 / s, 1 - 1 / s, s - 1)[:, None]
-    step = max(1, _BLOCK_BYTES // (10 * 8 * s))
-    for q0 in range(0, n_q, step):
-        q1 = min(n_q, q0 + step)
-        block = x[:, q0:q1]
-        order = np.argsort(block, axis=0, kind="stable")
-        xs = np.take_along_axis(block, order, axis=0)
-        ws = w[order]
-        bw = np.diff(xs, axis=0)
-        up = _cjs_sorted(bw, cdf_p, np.cumsum(ws, axis=0)[:-1])
-        # -x sorted is x sorted reversed: reversed bin widths and weights.
-        down = _cjs_sorted(bw[::-1], cdf_p, np.cumsum(ws[::-1], axis=0)[:-1])
-        res = np.maximum(up, down)
-        res[~np.isfinite(block).all(axis=0)] = np.nan
-        out[q0:q1] = res
-    return out
+    return _cjs_many(_as_quantities(draws, w.size), [w])[0]
+
+
+def _sensitivities(draws: ArrayLike, components: list[NDArray[np.float64]], lo: float,
+                   hi: float) -> tuple[list[NDArray[np.float64]], list[tuple[float, float]]]:
+    """Sensitivity of every quantity to each component, and the Pareto k-hats of the weights."""
+    weights: list[NDArray[np.float64]] = []
+    ks: list[tuple[float, float]] = []
+    for comp in components:
+        lw_lo, k_lo = power_scale_log_weights(comp, lo)
+        lw_hi, k_hi = power_scale_log_weights(comp, hi)
+        weights += [np.exp(lw_lo).ravel(), np.exp(lw_hi).ravel()]
+        ks.append((k_lo, k_hi))
+    d = _cjs_many(_as_quantities(draws, weights[0].size), weights)
+    values = [(-d[2 * i] / math.log2(lo) + d[2 * i + 1] / math.log2(hi)) / 2
+              for i in range(len(components))]
+    return values, ks
 
 
 def power_scaling_sensitivity(
@@ -257,12 +282,8 @@ def power_scaling_sensitivity(
     ndarray, shape (quantities,)
     """
     lo, hi = (float(a) for a in alphas)
-    comp = _component(log_component)
-    lw_lo, _ = power_scale_log_weights(comp, lo)
-    lw_hi, _ = power_scale_log_weights(comp, hi)
-    d_lo = cjs_distance(draws, np.exp(lw_lo))
-    d_hi = cjs_distance(draws, np.exp(lw_hi))
-    return (-d_lo / math.log2(lo) + d_hi / math.log2(hi)) / 2
+    values, _ = _sensitivities(draws, [_component(log_component)], lo, hi)
+    return values[0]
 
 
 def diagnose(
@@ -318,15 +339,7 @@ def psense_summary(
     of shape (chains, draws), each summed over its terms.
     """
     lo, hi = (float(a) for a in alphas)
-    values: dict[str, NDArray[np.float64]] = {}
-    ks: dict[str, tuple[float, float]] = {}
-    for name, comp in (("prior", log_prior), ("likelihood", log_likelihood)):
-        c = _component(comp)
-        lw_lo, k_lo = power_scale_log_weights(c, lo)
-        lw_hi, k_hi = power_scale_log_weights(c, hi)
-        d_lo = cjs_distance(draws, np.exp(lw_lo))
-        d_hi = cjs_distance(draws, np.exp(lw_hi))
-        values[name] = (-d_lo / math.log2(lo) + d_hi / math.log2(hi)) / 2
-        ks[name] = (k_lo, k_hi)
-    return Sensitivity(values["prior"], values["likelihood"],
-                       diagnose(values["prior"], values["likelihood"], threshold), ks, threshold)
+    (prior, likelihood), (k_prior, k_lik) = _sensitivities(
+        draws, [_component(log_prior), _component(log_likelihood)], lo, hi)
+    return Sensitivity(prior, likelihood, diagnose(prior, likelihood, threshold),
+                       {"prior": k_prior, "likelihood": k_lik}, threshold)
