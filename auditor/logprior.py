@@ -241,11 +241,10 @@ class _Scope:
     """Where names get their values: the draws, the data and the program's declarations."""
 
     def __init__(self, program: ProgramSummary, draws: Mapping[str, NDArray[np.float64]],
-                 data: Mapping[str, Any], n_chain: int, n_draw: int) -> None:
+                 data: Mapping[str, Any]) -> None:
         self.program = program
         self.draws = draws
         self.data = data
-        self.n_chain, self.n_draw = n_chain, n_draw
         self.stan = program.language == "stan"
 
     def value(self, name: str) -> _Val:
@@ -550,7 +549,7 @@ def evaluate_log_prior(
         says; raises ``ValueError`` only when ``posterior`` holds no draws at all.
     """
     draws, n_chain, n_draw = _draws_arrays(posterior)
-    scope = _Scope(program, draws, dict(data or {}), n_chain, n_draw)
+    scope = _Scope(program, draws, dict(data or {}))
     evaluated: list[EvaluatedStatement] = []
     left_out: list[LeftOutStatement] = []
     without: list[str] = []
