@@ -274,6 +274,11 @@ def _assemble(spec: AnalysisSpec, gate: Boundary | None = None) -> Analysis:
             analysis.problems.append(InputProblem("unreadable", spec.data, "data file not found"))
     elif analysis.tree is not None:
         analysis.data = _data_from_tree(analysis.tree)
+    if spec.sbc_ranks is not None:
+        from auditor.loaders.sbc_ranks import read_sbc_ranks
+
+        analysis.sbc = read_sbc_ranks(spec.sbc_ranks, n_draws=spec.sbc_draws, gate=gate)
+        analysis.problems.extend(_problems(analysis.sbc.problems))
     if analysis.tree is not None and analysis.program is None and spec.model is None:
         if analysis.sources:
             first = analysis.sources[0]

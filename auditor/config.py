@@ -43,6 +43,9 @@ ANALYSIS_KEYS = frozenset(
         "predictive",
         "plausible_range",
         "chosen",
+        "log_prior",
+        "sbc_ranks",
+        "sbc_draws",
     }
 )
 RULE_KEYS = frozenset({"enabled", "severity"})
@@ -114,6 +117,12 @@ def _variable(v: Any) -> str:
     return v
 
 
+def _positive(v: Any) -> int:
+    if not isinstance(v, int) or isinstance(v, bool) or v < 1:
+        raise TypeError("a whole number >= 1")
+    return v
+
+
 def _flag(v: Any) -> bool:
     if not isinstance(v, bool):
         raise TypeError("true or false")
@@ -167,6 +176,9 @@ ANALYSIS_TYPES: dict[str, Callable[[Any], Any]] = {
     "predictive": _variable,
     "plausible_range": _range,
     "chosen": _flag,
+    "log_prior": _variable,
+    "sbc_ranks": _text,
+    "sbc_draws": _positive,
 }
 assert set(ANALYSIS_TYPES) == ANALYSIS_KEYS
 
@@ -385,7 +397,7 @@ def _analysis_spec(
     draws = _expand(base, values.get("draws", []), "draws", ctx)
     prior = _expand(base, values.get("prior_draws", []), "prior_draws", ctx)
     single: dict[str, Path | None] = {}
-    for key in ("model", "data"):
+    for key in ("model", "data", "sbc_ranks"):
         value = values.get(key)
         single[key] = None
         if value:
@@ -406,6 +418,9 @@ def _analysis_spec(
         predictive=values.get("predictive"),
         problems=list(ctx.problems),
         chosen=values.get("chosen", False),
+        log_prior=values.get("log_prior"),
+        sbc_ranks=single["sbc_ranks"],
+        sbc_draws=values.get("sbc_draws"),
     )
 
 

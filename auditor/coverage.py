@@ -15,7 +15,7 @@ from __future__ import annotations
 
 from collections.abc import Iterable
 from dataclasses import dataclass
-from typing import TYPE_CHECKING
+from typing import TYPE_CHECKING, Any
 
 if TYPE_CHECKING:
     from auditor.model import Analysis
@@ -34,6 +34,7 @@ STAGES: tuple[tuple[str, str, tuple[str, ...]], ...] = (
     ("posterior-predictive", "Posterior predictive check", ("posterior-predictive",)),
     ("comparison", "Model comparison", ("loo", "comparison")),
     ("sensitivity", "Sensitivity to the priors", ("sensitivity",)),
+    ("calibration", "Simulation-based calibration", ("calibration",)),
 )
 
 
@@ -163,15 +164,39 @@ def comparison_coverage(entry: dict[str, str], has_loo: bool, compared: bool,
     return entry
 
 
-def _sensitivity(analysis: Analysis) -> tuple[str, str]:
-    return NOT_CHECKED, "sensitivity checks are not yet part of this audit"
+def _sensitivity(analysis: Analysis, table: Any) -> tuple[str, str]:
+    if table is None:
+        return NOT_CHECKED, "sensitivity was not computed"
+    missing = table.missing
+    if missing:
+        if "log-prior" in missing or "log_prior" in missing or "prior" in missing:
+            missing += (" (save a log_prior group, name a drawn `lprior` with "
+                        "log_prior = \"lprior\", or keep the prior statements evaluable)")
+        return NOT_CHECKED, missing
+    left = table.power.left_out
+    if left:
+        return PARTLY, (f"{len(left)} prior statement{'s' if len(left) != 1 else ''} could not "
+                        "be evaluated and were left out of the log-prior")
+    return CHECKED, ""
 
 
-def analysis_coverage(analysis: Analysis, enabled_stages: Iterable[str]) -> list[StageCoverage]:
+def _calibration(analysis: Analysis) -> tuple[str, str]:
+    sbc = analysis.sbc
+    if sbc is None:
+        return NOT_CHECKED, ("no simulation-based calibration ranks (name a ranks CSV with "
+                             "sbc_ranks in the configuration)")
+    if not sbc.parameters or sbc.ranks is None or len(sbc.ranks) == 0:
+        return NOT_CHECKED, "the simulation-based calibration ranks could not be read"
+    return CHECKED, ""
+
+
+def analysis_coverage(analysis: Analysis, enabled_stages: Iterable[str],
+                      sensitivity: Any = None) -> list[StageCoverage]:
     """The coverage record of one analysis.
 
     ``enabled_stages`` are the rule stages with at least one enabled rule; a stage
     whose rules are all disabled is not checked, whatever the inputs.
+    ``sensitivity`` is the analysis's :class:`auditor.sensitivity.SensitivityTable`.
     """
     enabled = set(enabled_stages)
     program_why = _program_state(analysis)
@@ -183,7 +208,8 @@ def analysis_coverage(analysis: Analysis, enabled_stages: Iterable[str]) -> list
         "sampling": _sampling(analysis),
         "posterior-predictive": _posterior_predictive(analysis),
         "comparison": _comparison(analysis),
-        "sensitivity": _sensitivity(analysis),
+        "sensitivity": _sensitivity(analysis, sensitivity),
+        "calibration": _calibration(analysis),
     }
     out = []
     for key, title, rule_stages in STAGES:

@@ -38,6 +38,7 @@ from auditor.programs.read import read_program
 from auditor.registry import all_rules, find_rule
 from auditor.result import AnalysisResult, AuditResult, InputFile
 from auditor.rules_api import ComparisonContext, RuleContext, RuleMeta
+from auditor.sensitivity import SensitivityTable
 
 #: Libraries whose versions go into the reproducibility record.
 LIBRARIES = ("arviz-base", "arviz-stats", "xarray", "numpy", "scipy", "lark", "jinja2")
@@ -226,6 +227,7 @@ def _audit_analysis(analysis: Analysis, project: Project, rules: list[RuleMeta],
     one_based = analysis.settings.library == "CmdStan"
     table = DiagnosticsTable(analysis.group("posterior"), one_based=one_based)
     loo = LooTable(analysis)
+    sensitivity = SensitivityTable(analysis)
     findings: list[Finding] = []
     figures = []
     enabled_stages: set[str] = set()
@@ -237,7 +239,8 @@ def _audit_analysis(analysis: Analysis, project: Project, rules: list[RuleMeta],
         if rule.scope != "analysis":
             continue
         ctx = RuleContext(rule, analysis, project, thresholds, severity, table,
-                          options={"max_figures": cfg.max_figures}, loo=loo)
+                          options={"max_figures": cfg.max_figures}, loo=loo,
+                          sensitivity=sensitivity)
         try:
             hits = list(rule.check(ctx) or [])
         except Exception as exc:  # a rule failing on odd data must not stop the audit
@@ -252,6 +255,16 @@ def _audit_analysis(analysis: Analysis, project: Project, rules: list[RuleMeta],
     rows = table.rows
     for error in table.errors:
         findings.append(_failure("diagnostics table", analysis, project, error))
+    try:
+        contraction = sensitivity.contraction
+    except Exception as exc:  # odd prior draws must not stop the audit
+        contraction = {}
+        findings.append(_failure("posterior contraction", analysis, project, exc))
+    if contraction:
+        # Shown in the diagnostics table, from the object the rules read.
+        rows = [{**r, "contraction": contraction.get(r["quantity"])} for r in rows]
+    for error in sensitivity.errors:
+        findings.append(_failure("power-scaling sensitivity", analysis, project, error))
     try:
         records = loo.records()
         unscored = [(analysis.name, *u) for u in loo.unscored()]
@@ -276,9 +289,20 @@ def _audit_analysis(analysis: Analysis, project: Project, rules: list[RuleMeta],
                       if analysis.group(n) is not None),
         priors=_priors(analysis, project),
         pairings=[p.as_dict() for p in analysis.pairings],
-        coverage=[c.as_dict() for c in analysis_coverage(analysis, enabled_stages)],
+        coverage=[c.as_dict() for c in analysis_coverage(analysis, enabled_stages,
+                                                         sensitivity)],
         loo=[r.as_dict() for r in records],
+        sensitivity=_sensitivity_record(sensitivity, findings, analysis, project),
     ), records, unscored
+
+
+def _sensitivity_record(table: SensitivityTable, findings: list[Finding], analysis: Analysis,
+                        project: Project) -> dict[str, Any]:
+    try:
+        return table.record()
+    except Exception as exc:  # odd draws must not stop the audit
+        findings.append(_failure("power-scaling sensitivity", analysis, project, exc))
+        return {}
 
 
 def _cover_comparison(analyses: list[AnalysisResult], records: list[LooRecord],

@@ -36,6 +36,8 @@ STAGES: tuple[str, ...] = (
     "posterior-predictive",
     "loo",
     "comparison",
+    "sensitivity",
+    "calibration",
 )
 
 

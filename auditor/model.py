@@ -105,6 +105,12 @@ class AnalysisSpec:
     chosen: bool = False
     #: Draws already in memory (a DataTree handed to the Python API) instead of files.
     tree: Any = None
+    #: Name of a drawn variable holding the log-prior per draw (``log_prior``).
+    log_prior: str | None = None
+    #: Simulation-based calibration ranks (a CSV) and, when the file has no column
+    #: for it, the number of posterior draws per simulation.
+    sbc_ranks: Path | None = None
+    sbc_draws: int | None = None
 
 
 @dataclass
@@ -144,6 +150,8 @@ class Analysis:
     data: dict[str, Any] = field(default_factory=dict)
     problems: list[InputProblem] = field(default_factory=list)
     pairings: list[Pairing] = field(default_factory=list)
+    #: Simulation-based calibration ranks read for this analysis (``SbcRanks``), if any.
+    sbc: Any = None
 
     def group(self, name: str) -> xr.Dataset | None:
         """Dataset of group ``name``, or ``None`` when absent or empty."""

@@ -68,6 +68,10 @@ class AnalysisResult:
     #: PSIS-LOO and WAIC per observed variable (``LooRecord.as_dict()`` of
     #: :mod:`auditor.loo`).
     loo: list[dict[str, Any]] = field(default_factory=list)
+    #: Power-scaling sensitivity: ``source`` of the log-prior, ``left_out`` prior
+    #: statements and one row per quantity (``quantity``, ``prior``, ``likelihood``,
+    #: ``diagnosis``); empty when it could not be computed (see the coverage record).
+    sensitivity: dict[str, Any] = field(default_factory=dict)
 
     def stages_checked(self) -> tuple[int, int, int]:
         """(stages checked, stages partly checked, stages that apply) of the coverage."""

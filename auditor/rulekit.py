@@ -239,3 +239,53 @@ def posterior_attr(ctx: RuleContext, name: str) -> object | None:
         if node is not None and name in node.attrs:
             return node.attrs[name]
     return None
+
+
+# --- sensitivity (issue 11) ----------------------------------------------------------------
+
+
+def sensitivity_findings(ctx: RuleContext, conflict: bool) -> Iterator[Finding]:
+    """Findings of power-scaling sensitivity per variable: prior-data conflict
+    (``conflict``) or a prior that dominates; statements left out of the log-prior are
+    named in the message."""
+    from auditor.kernels.psense import PRIOR_DATA_CONFLICT, STRONG_PRIOR, diagnose
+
+    if ctx.sensitivity is None or ctx.sensitivity.power is None:
+        return
+    power = ctx.sensitivity.power
+    limit = float(ctx.thresholds["threshold"])
+    wanted = PRIOR_DATA_CONFLICT if conflict else STRONG_PRIOR
+    diagnosis = diagnose(power.prior, power.likelihood, limit)
+    by_var: dict[str, list[int]] = defaultdict(list)
+    for i, d in enumerate(diagnosis):
+        if d == wanted:
+            by_var[power.variables[i]].append(i)
+    left = power.left_out
+    note = ""
+    if left:
+        listed = "; ".join(f"{s.text or s.variable} (line {s.line}: {s.reason})"
+                           for s in left[:3])
+        note = (f" The log-prior was evaluated from the program; {len(left)} statement"
+                f"{'s were' if len(left) != 1 else ' was'} left out: {listed}"
+                + ("; ..." if len(left) > 3 else "") + ".")
+    total = {v: power.variables.count(v) for v in set(power.variables)}
+    for var, idx in by_var.items():
+        worst = max(idx, key=lambda i: power.prior[i])
+        share = (f"{len(idx)} of {total[var]} elements of `{var}`" if total[var] > 1
+                 else f"`{var}`")
+        what = ("is sensitive to both the prior and the likelihood: prior-data conflict"
+                if conflict else "is sensitive to the prior but not to the likelihood: a "
+                "strong prior or a weak likelihood")
+        yield ctx.finding(
+            f"The posterior of {share} {what} (power-scaling sensitivity of "
+            f"{power.quantities[worst]}: prior {power.prior[worst]:.3f}, likelihood "
+            f"{power.likelihood[worst]:.3f}; threshold {limit:g}; log-prior from the "
+            f"{power.log_prior_source}).{note}",
+            evidence={"quantity": power.quantities[worst],
+                      "prior_sensitivity": round(float(power.prior[worst]), 4),
+                      "likelihood_sensitivity": round(float(power.likelihood[worst]), 4),
+                      "threshold": limit, "flagged": len(idx),
+                      "log_prior_source": power.log_prior_source,
+                      "left_out_statements": len(left)},
+            quantity=power.quantities[worst],
+        )

@@ -21,6 +21,7 @@ if TYPE_CHECKING:
     from auditor.loo import LooRecord, LooTable
     from auditor.model import Analysis, Project
     from auditor.result import Figure
+    from auditor.sensitivity import SensitivityTable
 
 
 @dataclass
@@ -61,6 +62,8 @@ class RuleContext:
     options: dict[str, Any] = field(default_factory=dict)
     #: PSIS-LOO of the analysis's observed variables, computed on first use.
     loo: LooTable | None = None
+    #: Power-scaling sensitivity and contraction, computed on first use.
+    sensitivity: SensitivityTable | None = None
 
     def finding(
         self,

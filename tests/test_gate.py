@@ -53,9 +53,9 @@ def test_submission_policy_on_the_example_project_is_stricter():
     strict = run_audit([DEMO], overrides={"policy": "submission"})
     assert every.policy["name"] == "everyday" and strict.policy["name"] == "submission"
     assert every.policy["sha256"] != strict.policy["sha256"]
-    # Required stages: sensitivity is not checked for any demo analysis (8 findings).
+    # Required stages: no demo analysis has simulation-based calibration ranks.
     stage = [f for f in strict.all_findings if f.rule_id == "inputs.stage-not-checked"]
-    assert {f.quantity for f in stage} == {"sensitivity"} and len(stage) == len(strict.analyses)
+    assert {f.quantity for f in stage} == {"calibration"} and len(stage) == len(strict.analyses)
     assert strict.counts()["error"] > every.counts()["error"]
     # ESS of yards-centered's tau is below 400: an error under the policy (Vehtari et al.
     # 2021), a warning by default.
@@ -238,7 +238,7 @@ def test_api_on_files_and_its_dataframe():
     assert result.exit_status == 1 and result.findings == result.all_findings
     frame = result.to_dataframe("findings")
     assert len(frame) == len(result.findings) and {"rule", "severity"} <= set(frame.columns)
-    assert len(result.to_dataframe("coverage")) == 7 * len(result.analyses)
+    assert len(result.to_dataframe("coverage")) == 8 * len(result.analyses)
     assert set(result.to_dataframe("diagnostics")["analysis"]) == {
         a.name for a in result.analyses if a.diagnostics}
 

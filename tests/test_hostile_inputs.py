@@ -202,6 +202,12 @@ CONFIG_TYPES = [
      "'plausible_range' must be [low, high]"),
     ('[[analysis]]\nname = "a"\ndraws = "fits/*.csv"\nchosen = "yes"',
      "'chosen' must be true or false"),
+    ('[[analysis]]\nname = "a"\ndraws = "fits/*.csv"\nlog_prior = 1',
+     "'log_prior' must be a variable name"),
+    ('[[analysis]]\nname = "a"\ndraws = "fits/*.csv"\nsbc_ranks = true',
+     "'sbc_ranks' must be a string"),
+    ('[[analysis]]\nname = "a"\ndraws = "fits/*.csv"\nsbc_draws = 0',
+     "'sbc_draws' must be a whole number >= 1"),
 ]
 
 

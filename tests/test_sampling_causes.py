@@ -262,10 +262,12 @@ def test_rules_take_their_numbers_from_our_kernels():
     # Common practice for this project (issue 12): arviz-stats is the oracle of the tests only;
     # the rules and the diagnostics table compute with auditor.kernels. Two uses are left:
     # the rank plot's ranks (a plotting helper in auditor/figures/sampling.py), and the
-    # simultaneous ECDF bands of the LOO-PIT test, which issue 9 asks to take from
-    # arviz-stats (auditor/predictive_checks.py: arviz_stats.ecdf_utils.ecdf_pit).
+    # simultaneous ECDF bands of the LOO-PIT and SBC tests, which issue 9 asks to take from
+    # arviz-stats (arviz_stats.ecdf_utils.ecdf_pit in auditor/predictive_checks.py and
+    # auditor/kernels/sbc.py).
     pattern = re.compile(r"^\s*(import|from)\s+arviz_stats", re.M)
     users = [p.relative_to(REPO).as_posix()
              for p in [*REPO.glob("rules/**/*.py"), *REPO.glob("auditor/**/*.py")]
              if "/cases/" not in p.as_posix() and pattern.search(p.read_text())]
-    assert sorted(users) == ["auditor/figures/sampling.py", "auditor/predictive_checks.py"]
+    assert sorted(users) == ["auditor/figures/sampling.py", "auditor/kernels/sbc.py",
+                             "auditor/predictive_checks.py"]

@@ -13,7 +13,9 @@
    best with its paired SE, p_loo, stacking weights); ``policy`` (name, hash,
    files), ``accepted_file``, ``baseline`` (new, unchanged, gone), per finding
    ``accepted`` (reason, by, expires) and ``baseline`` (new or unchanged), and
-   ``gate.new_only`` and ``summary.accepted``.
+   ``gate.new_only`` and ``summary.accepted``; per analysis ``sensitivity``
+   (power-scaling sensitivity of each quantity, the log-prior's source and the prior
+   statements left out), and ``contraction`` in the diagnostics rows.
 """
 
 from __future__ import annotations
@@ -96,6 +98,7 @@ def to_dict(result: AuditResult) -> dict[str, Any]:
                 "coverage": json_safe(a.coverage),
                 "pairings": json_safe(a.pairings),
                 "loo": json_safe(a.loo),
+                "sensitivity": json_safe(a.sensitivity),
                 "diagnostics": json_safe(a.diagnostics),
                 "findings": [finding_dict(f) for f in a.findings],
             }

@@ -30,6 +30,8 @@ STAGE_TITLES: dict[str, str] = {
     "posterior-predictive": "Posterior predictive checks",
     "loo": "Leave-one-out cross-validation",
     "comparison": "Model comparison",
+    "sensitivity": "Sensitivity to the priors",
+    "calibration": "Simulation-based calibration",
 }
 
 VERDICTS: dict[str, tuple[str, str]] = {
@@ -47,6 +49,7 @@ COLUMNS: tuple[tuple[str, str, str], ...] = (
     ("mcse_mean", "MCSE of mean", "{:.3g}"),
     ("mean", "mean", "{:.4g}"),
     ("sd", "sd", "{:.3g}"),
+    ("contraction", "contraction", "{:.2f}"),
 )
 DEFAULT_MAX_TABLE_ROWS = 1000
 DASH = "\u2014"

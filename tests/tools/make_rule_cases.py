@@ -214,6 +214,7 @@ def main() -> None:
     _input_cases(rng)
     _predictive_cases(np.random.default_rng(20261203))
     _comparison_cases(np.random.default_rng(20261204))
+    _sensitivity_cases(np.random.default_rng(20261205))
 
 
 # --------------------------------------------------------------------------- predictive
@@ -473,6 +474,87 @@ def _normal_fit_sd(rng: np.random.Generator, y: np.ndarray, sd: float) -> dict:
                - 0.5 * ((y[None, None, :] - mu[..., None]) / sd) ** 2)
     y_rep = rng.normal(mu[..., None], sd, (*mu.shape, n))
     return {"mu": mu, "log_lik": log_lik, "y_rep": y_rep}
+
+
+
+# --------------------------------------------------------------------------- sensitivity
+
+
+def _conjugate(rng: np.random.Generator, y: np.ndarray, m0: float, s0: float) -> dict:
+    """Exact posterior draws of mu (prior normal(m0, s0), known sd 1), with log_lik and y_rep."""
+    var = 1 / (1 / s0**2 + y.size)
+    mu = rng.normal(var * (m0 / s0**2 + y.sum()), np.sqrt(var), (PRED_CHAINS, PRED_DRAWS))
+    log_lik = -0.5 * np.log(2 * np.pi) - 0.5 * (y[None, None, :] - mu[..., None]) ** 2
+    return {"mu": mu, "log_lik": log_lik,
+            "y_rep": rng.normal(mu[..., None], 1.0, (*mu.shape, y.size))}
+
+
+def _sensitivity_cases(rng: np.random.Generator) -> None:
+    """Cases of the sensitivity and calibration rules, from exact conjugate draws."""
+    y = rng.normal(3.0, 1.0, PRED_N)
+    data = {"N": PRED_N, "y": _listed(y)}
+    weak = NORMAL_PROGRAM.replace("normal(0, 5)", "normal(0, 10)")
+
+    # Prior-data conflict: a prior normal(-3, 0.3) against readings around 3.
+    conflict = NORMAL_PROGRAM.replace("normal(0, 5)", "normal(-3, 0.3)")
+    _project("sensitivity.prior-data-conflict", "good", weak, data, _conjugate(rng, y, 0, 10),
+             None, rng)
+    folder = _project("sensitivity.prior-data-conflict", "bad", conflict, data,
+                      _conjugate(rng, y, -3, 0.3), None, rng)
+    (folder / "expect.toml").write_text('[[hit]]\nquantity = "mu"\n')
+
+    # A prior that dominates: normal(0, 0.05) with two readings near it.
+    few = rng.normal(0.0, 1.0, 2)
+    few_data = {"N": 2, "y": _listed(few)}
+    strong = NORMAL_PROGRAM.replace("normal(0, 5)", "normal(0, 0.05)")
+    _project("sensitivity.prior-dominated", "good", weak, data, _conjugate(rng, y, 0, 10),
+             None, rng)
+    folder = _project("sensitivity.prior-dominated", "bad", strong, few_data,
+                      _conjugate(rng, few, 0, 0.05), None, rng)
+    (folder / "expect.toml").write_text('[[hit]]\nquantity = "mu"\n')
+
+    # Weak contraction: a second parameter the likelihood does not mention, so its
+    # posterior is its prior normal(0, 1); mu is informed by 20 readings.
+    spare = NORMAL_PROGRAM.replace("parameters {\n  real mu;",
+                                   "parameters {\n  real mu;\n  real nu;").replace(
+        "  mu ~ normal(0, 5);", "  mu ~ normal(0, 5);\n  nu ~ normal(0, 1);")
+    shape = (PRED_CHAINS, PRED_DRAWS)
+    post = _conjugate(rng, y, 0, 5)
+    prior = {"mu": rng.normal(0, 5, shape), "nu": rng.normal(0, 1, shape)}
+    prior["y_rep"] = rng.normal(prior["mu"][..., None], 1.0, (*shape, PRED_N))
+    _project("sensitivity.weak-contraction", "good", NORMAL_PROGRAM, data, post,
+             {k: v for k, v in prior.items() if k != "nu"}, rng)
+    folder = _project("sensitivity.weak-contraction", "bad", spare, data,
+                      {**post, "nu": rng.normal(0, 1, shape)}, prior, rng)
+    (folder / "expect.toml").write_text('[[hit]]\nquantity = "nu"\n')
+
+    # Calibration: ranks of the true mu among 99 exact posterior draws over 400
+    # simulations; the bad case's posterior sd is halved (too narrow).
+    def ranks(sd_factor: float) -> list[int]:
+        out = []
+        for _ in range(400):
+            mu = rng.normal(0, 1)
+            yy = rng.normal(mu, 1.0, 10)
+            var = 1 / (1 + yy.size)
+            draws = rng.normal(var * yy.sum(), sd_factor * np.sqrt(var), 99)
+            out.append(int(np.sum(draws < mu)))
+        return out
+
+    for kind, factor in (("good", 1.0), ("bad", 0.5)):
+        folder = _project("calibration.sbc", kind, NORMAL_PROGRAM, data, fit_for_sbc(rng, y),
+                          None, rng)
+        (folder / "sbc-ranks.csv").write_text(
+            "mu,n_draws\n" + "".join(f"{r},99\n" for r in ranks(factor)))
+        with (folder / "bayes-auditor.toml").open("a") as fh:
+            fh.write('sbc_ranks = "sbc-ranks.csv"\n')
+        if kind == "bad":
+            (folder / "expect.toml").write_text('[[hit]]\nquantity = "mu"\n'
+                                                'path = "sbc-ranks.csv"\n')
+
+
+def fit_for_sbc(rng: np.random.Generator, y: np.ndarray) -> dict:
+    """The analysis the calibration belongs to (its draws are not what SBC tests)."""
+    return _conjugate(rng, y, 0, 5)
 
 
 if __name__ == "__main__":
