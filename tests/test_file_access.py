@@ -56,6 +56,7 @@ def hook(event, args):
         events.append([event, os.fsdecode(first) if isinstance(first, (str, bytes))
                        else str(first)])
 
+events.append(["pid", str(os.getpid())])
 sys.addaudithook(hook)
 from auditor.cli import main
 code = main(sys.argv[1:])
@@ -105,12 +106,15 @@ def _hostile(base: Path) -> Path:
     return root
 
 
-def _allowed_reads(root: Path, mplconfig: Path) -> list[str]:
+def _allowed_reads(root: Path, mplconfig: Path, pid: str) -> list[str]:
     installation = {sys.prefix, sys.base_prefix, sys.exec_prefix,
                     *(p for p in sys.path if p and os.path.isdir(p))}
     tool = [REPO / "auditor", REPO / "rules", REPO / "templates"]
+    # /proc/stat, the process's own /proc/<pid>/stat and /proc/self/cgroup: CPU times and
+    # quota that psutil and Dask read when imported (xarray imports Dask, and Dask psutil,
+    # whenever Dask is installed: the scale extra).
     facts = ["/proc/meminfo", "/proc/self/status", "/sys/fs/cgroup/", "/usr/share/zoneinfo/",
-             os.devnull]
+             "/proc/stat", f"/proc/{pid}/stat", "/proc/self/cgroup", os.devnull]
     return [os.path.realpath(p) for p in (root, mplconfig, *installation, *tool)] + facts
 
 
@@ -145,8 +149,9 @@ def recorded(tmp_path_factory, request):
         cwd=base, env=env, capture_output=True, text=True, timeout=300)
     assert "@@EVENTS@@" in proc.stderr, proc.stderr[-2000:]
     events = json.loads(proc.stderr.split("@@EVENTS@@")[1])
+    pid = next(e[1] for e in events if e[0] == "pid")
     return {"root": root, "out": out, "base": base, "events": events, "proc": proc,
-            "allowed": _allowed_reads(root, mplconfig), "mode": request.param}
+            "allowed": _allowed_reads(root, mplconfig, pid), "mode": request.param}
 
 
 def test_the_audit_ran_and_found_the_requests(recorded):
