@@ -272,14 +272,14 @@ def _chunking(shape: tuple[int, ...], per_element: int) -> tuple[int, ...]:
 
 def _copy_variable(group, name: str, dims: tuple[str, ...], shape: tuple[int, ...],  # noqa: ANN001
                    start: int, width: int, raws: list[int], rows: tuple[int, int]):  # noqa: ANN202
-    """Pass 2 for one variable: raw rows ``rows`` of every chain into a Zarr array."""
+    """Pass 2 for one variable: raw rows ``rows`` of every chain into the Zarr array ``name``
+    of ``group``."""
     n_chains, n_draws = len(raws), rows[1] - rows[0]
     per_element = 8 * n_chains * n_draws
     chunks = _chunking(shape, per_element)
     arr = group.create_array(name, shape=(n_chains, n_draws, *shape),
                              chunks=(n_chains, n_draws, *chunks), dtype="float64",
-                             compressors=None, fill_value=np.nan,
-                             dimension_names=("chain", "draw", *dims))
+                             compressors=None, fill_value=np.nan)
     size = math.prod(shape)
     if size == 0 or n_draws == 0:
         return arr
@@ -404,10 +404,12 @@ def _convert(paths, gate, folder, problems, zarr, dask_array) -> Loaded:  # noqa
             zgroup = store.require_group(group)
             variables: dict[str, xr.Variable] = {}
             start = 0
-            for name, spec in layout.items():
+            for number, (name, spec) in enumerate(layout.items()):
                 shape = () if isinstance(spec, int) else tuple(spec.shape)
                 dims = tuple(f"{name}_dim_{k}" for k in range(len(shape)))
-                arr = _copy_variable(zgroup, name, dims, shape, start, width, fds, rows)
+                # Arrays are named by number: a column name need not be a valid store path.
+                arr = _copy_variable(zgroup, f"v{number}", dims, shape, start, width, fds,
+                                     rows)
                 variables[name] = xr.Variable(("chain", "draw", *dims),
                                               dask_array.from_zarr(arr))
                 start += max(1, math.prod(shape))
