@@ -712,8 +712,11 @@ def _serial(specs: list[AnalysisSpec], job: AuditJob,
     for done, spec in enumerate(specs):
         if progress is not None:
             progress(f"auditing {spec.name}", done, len(specs))
-        one = audit_one(spec, job, frozenset(hashed))
-        hashed |= {p for p in _spec_files(spec)}
+        try:
+            one = audit_one(spec, job, frozenset(hashed))
+        except Exception as exc:  # a part outside the rules failing costs this analysis only
+            one = _failed_analysis(spec, job.root, exc)
+        hashed |= _spec_files(spec)
         yield done, one
 
 
