@@ -299,3 +299,23 @@ def test_an_unreachable_scheduler_is_a_clear_error(demo, capsys, monkeypatch):
                    "--scheduler", "tcp://127.0.0.1:9"])
     assert status == 2
     assert "cannot reach the Dask scheduler" in capsys.readouterr().err
+
+
+def test_no_conversion_inside_the_project_the_run_is_read_whole(tmp_path, monkeypatch):
+    """A system temporary folder inside the project is never written to: the run is read
+    whole instead, with a note."""
+    project = tmp_path / "one"
+    (project / "fits").mkdir(parents=True)
+    for p in sorted((DEMO / "fits").glob("yards_centered-[0-9].csv")):
+        shutil.copy(p, project / "fits" / p.name)
+    inside = project / "tmp"
+    inside.mkdir()
+    monkeypatch.setattr(tempfile, "tempdir", str(inside))
+    before = _listing(project)
+    lazily = run_audit([project], overrides={"lazy_share": TINY})
+    monkeypatch.setattr(tempfile, "tempdir", None)
+    whole = run_audit([project], overrides={"lazy_share": 1.0})
+    assert list(inside.iterdir()) == [] and _listing(project) == before
+    notes = [f for f in lazily.all_findings if "could not be converted" in f.message]
+    assert len(notes) == 1 and notes[0].rule_id == "inputs.remark"
+    assert lazily.analyses[0].diagnostics == whole.analyses[0].diagnostics

@@ -51,6 +51,7 @@ from auditor.loaders.cmdstan_csv import (
     _parse_rows,
     _settings,
     _stats_dataset,
+    load_cmdstan_csv,
 )
 from auditor.loaders.problems import Loaded, LoadProblem, refused_problem
 from auditor.model import SamplerSettings
@@ -335,9 +336,13 @@ def cmdstan_to_zarr(paths: list[Path], gate: Boundary
     try:
         folder = temporary_folder(gate)
     except OSError as exc:
-        return Loaded(tree=None, settings=SamplerSettings(library="CmdStan"), problems=[
-            LoadProblem(paths[0], f"the run is too large to read whole and could not be "
-                        f"converted for reading in blocks: {exc}")]), []
+        # No place to convert it: read it whole, as without lazy reading (the size limit
+        # for one input still applies).
+        whole = load_cmdstan_csv(paths, gate)
+        whole.problems.insert(0, LoadProblem(
+            paths[0], f"the run is large but could not be converted for reading in blocks "
+            f"({exc}); it was read whole", kind="note"))
+        return whole, []
 
     def remove() -> None:
         shutil.rmtree(folder, ignore_errors=True)
