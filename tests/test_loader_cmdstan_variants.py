@@ -375,3 +375,20 @@ def test_wide_file_through_the_fast_path_matches_the_text(tmp_path):
     x = loaded.tree["posterior"]["x"].values
     expect = np.array([[[float(v) for v in r.split(",")[7:]] for r in rows] for rows in texts])
     np.testing.assert_array_equal(x, expect)
+
+
+def test_tuple_and_complex_draws_match_their_declarations(tmp_path):
+    # The program that would write the columns of _complex_tuple_file (types as in
+    # StanIO.jl's generating programs): no stale-fit finding for tuple slots.
+    _complex_tuple_file(tmp_path / "ct-1.csv")
+    (tmp_path / "bernoulli.stan").write_text(
+        "parameters {\n  real base;\n}\nmodel {\n  base ~ normal(0, 1);\n}\n"
+        "generated quantities {\n  complex z = to_complex(base, 1);\n"
+        "  complex_vector[2] zv = [z, z]';\n  tuple(real, real) pair = (base, base);\n"
+        "  tuple(real, tuple(real, complex)) nested = (base, (base, z));\n"
+        "  array[2] tuple(real, real) arr_pair = {pair, pair};\n"
+        "  array[3, 2] tuple(real, real) arr_2d_pair;\n}\n")
+    result = run_audit([tmp_path], only_rules={"inputs.stale-fit"})
+    (analysis,) = result.analyses
+    assert analysis.program == "bernoulli.stan"
+    assert analysis.findings == []
