@@ -350,7 +350,7 @@ def test_polars_and_python_parsers_agree(seed):
     np.testing.assert_array_equal(fast.fields[fast.good], slow.fields[slow.good])
 
 
-def test_wide_file_through_the_fast_path_matches_the_text(tmp_path):
+def test_wide_file_through_the_fast_path_matches_the_text(tmp_path, monkeypatch):
     # 2 chains x 40 draws x 3000 columns (about 1 MB per chain): several regions,
     # read by polars on worker threads; every value equals Python's float of its text.
     real = _outputs() / "cmdstanpy-runset-good" / "bern-1.csv"
@@ -365,12 +365,9 @@ def test_wide_file_through_the_fast_path_matches_the_text(tmp_path):
         (tmp_path / f"w-{c}.csv").write_text(
             head + ",".join(names) + "\n# Adaptation terminated\n" + "\n".join(rows) + "\n"
             + FOOTER)
-    monkey_chunk = cmdstan_csv.CHUNK
-    cmdstan_csv.CHUNK = 256 * 1024  # several regions per file
-    try:
-        loaded = load_draws([tmp_path / "w-1.csv", tmp_path / "w-2.csv"])
-    finally:
-        cmdstan_csv.CHUNK = monkey_chunk
+    monkeypatch.setattr(cmdstan_csv, "CHUNK", 256 * 1024)  # several regions per file
+    monkeypatch.setattr(cmdstan_csv, "_workers", lambda total: 2)  # and two parser threads
+    loaded = load_draws([tmp_path / "w-1.csv", tmp_path / "w-2.csv"])
     assert loaded.problems == []
     x = loaded.tree["posterior"]["x"].values
     expect = np.array([[[float(v) for v in r.split(",")[7:]] for r in rows] for rows in texts])
@@ -392,3 +389,17 @@ def test_tuple_and_complex_draws_match_their_declarations(tmp_path):
     (analysis,) = result.analyses
     assert analysis.program == "bernoulli.stan"
     assert analysis.findings == []
+
+
+def test_more_rows_than_the_header_promises(tmp_path, monkeypatch):
+    # bern-1.csv's 100 rows under a header that promises 5: the array grows while
+    # regions are being parsed on two threads; every row is kept and reported.
+    real = _outputs() / "cmdstanpy-runset-good" / "bern-1.csv"
+    path = _edited(real, tmp_path / "bern-1.csv", ("num_samples = 100", "num_samples = 5"))
+    monkeypatch.setattr(cmdstan_csv, "CHUNK", 512)
+    monkeypatch.setattr(cmdstan_csv, "_workers", lambda total: 2)
+    loaded = load_draws([path])
+    (problem,) = loaded.problems
+    assert "promises 5 draws" in problem.message and "100 data rows" in problem.message
+    theta = loaded.tree["posterior"]["theta"].values[0]
+    assert theta.tolist() == [float(r.split(",")[-1]) for r in _rows(real)]

@@ -83,6 +83,20 @@ def parse_region(region: bytes, n_lines: int, ncol: int, out: np.ndarray,
     return _parse_python(region, n_lines, ncol, out, row0)
 
 
+_EXPRESSION = None
+
+
+def _fields_as_floats():  # noqa: ANN202 - a polars expression, built once
+    """``l`` split at commas, each field cast to float64 (null when it is no number)."""
+    global _EXPRESSION
+    if _EXPRESSION is None:
+        import polars as pl
+
+        _EXPRESSION = pl.col("l").cast(pl.String).str.split(",").list.eval(
+            pl.element().cast(pl.Float64, strict=False)).alias("v")
+    return _EXPRESSION
+
+
 def _parse_polars(region: bytes, n_lines: int, ncol: int, out: np.ndarray,
                   row0: int) -> RegionResult | None:
     import polars as pl
@@ -100,8 +114,7 @@ def _parse_polars(region: bytes, n_lines: int, ncol: int, out: np.ndarray,
     # memory of exploding the fields first, and faster). Text that is not UTF-8
     # makes the cast raise: the plain parser then reads the region.
     df = pl.DataFrame({"l": pl.Series(lines, dtype=pl.Binary)}).lazy().select(
-        pl.col("l").cast(pl.String).str.split(",").list.eval(
-            pl.element().cast(pl.Float64, strict=False)).alias("v")).collect()
+        _fields_as_floats()).collect()
     if df.height != n_lines:
         return None
     lens = df["v"].list.len().fill_null(0).to_numpy()
