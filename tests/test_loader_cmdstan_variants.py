@@ -403,3 +403,19 @@ def test_more_rows_than_the_header_promises(tmp_path, monkeypatch):
     assert "promises 5 draws" in problem.message and "100 data rows" in problem.message
     theta = loaded.tree["posterior"]["theta"].values[0]
     assert theta.tolist() == [float(r.split(",")[-1]) for r in _rows(real)]
+
+
+def test_windows_line_ends_read_as_the_original(tmp_path, monkeypatch):
+    # cmdstan-outputs/arviz-stan-test-data-warmup chain 1 saved with CRLF line ends
+    # (a file passed through a Windows editor); small regions so polars reads them.
+    real = _outputs() / "arviz-stan-test-data-warmup" / "cmdstanpy_eight_schools_warmup-1.csv"
+    path = tmp_path / "crlf-1.csv"
+    path.write_bytes(real.read_bytes().replace(b"\n", b"\r\n"))
+    monkeypatch.setattr(cmdstan_csv, "CHUNK", 96 * 1024)
+    a, b = load_draws([real]), load_draws([path])
+    assert b.problems == []
+    for group in ("posterior", "warmup_posterior", "sample_stats"):
+        for v in a.tree[group].data_vars:
+            np.testing.assert_array_equal(a.tree[group][v].values, b.tree[group][v].values)
+    assert a.settings.adapted_step_size == b.settings.adapted_step_size
+    assert a.settings.warmup_seconds == b.settings.warmup_seconds
