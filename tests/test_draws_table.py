@@ -266,3 +266,17 @@ def test_data_table_with_an_observed_column(tmp_path):
     assert a.data["x"].tolist() == [1, 2, 3] and a.data["x"].dtype == np.int64
     assert np.isnan(a.data["y"][1]) and a.data["y"][2] == 4.0
     assert a.data["site"].tolist() == ["a", "b", "c"]
+
+
+def test_quantities_keep_the_labels_of_their_columns(tmp_path, draws):
+    # theta[2] of the table is theta[2] in the diagnostics and in findings.
+    table = _table(draws)
+    table = table.with_columns(pl.when((pl.col("chain") == 2) & (pl.col("draw") == 3))
+                               .then(float("nan")).otherwise(pl.col("theta[2]"))
+                               .alias("theta[2]"))
+    table.write_csv(tmp_path / "t.csv")
+    result = run_audit([tmp_path / "t.csv"], only_rules={"inputs.nonfinite-draws"})
+    (analysis,) = result.analyses
+    (hit,) = analysis.findings
+    assert hit.quantity == "theta[2]" and "1 NaN" in hit.message
+    assert "theta[3]" in {row["quantity"] for row in analysis.diagnostics}

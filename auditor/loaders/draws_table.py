@@ -282,7 +282,9 @@ def _assemble(frames: list[tuple[Path, dict[str, np.ndarray]]],
             dims = ("chain", "draw") if isinstance(spec, int) else (
                 "chain", "draw", *spec.dims(name))
             variables[name] = xr.Variable(dims, np.ascontiguousarray(arr))
-            for dim, coord in stan_names.coords_for(name, spec).items():
+            # The indices as the column names write them (from 1), so that a
+            # quantity is labelled theta[1] as its column says.
+            for dim, coord in stan_names.coords_for(name, spec, start=1).items():
                 coords.setdefault(dim, coord)
     attrs = {"source_format": "draws-table"}
     groups = {"posterior": xr.Dataset(variables, coords=coords, attrs=attrs)}

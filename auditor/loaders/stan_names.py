@@ -275,12 +275,13 @@ def extract(values: np.ndarray, spec: ArraySpec | int) -> np.ndarray:
     return arr.reshape(*lead, *spec.shape)
 
 
-def coords_for(name: str, spec: ArraySpec | int) -> dict[str, object]:
-    """Coordinates of a variable's element dimensions (0-based integers; the
+def coords_for(name: str, spec: ArraySpec | int, start: int = 0) -> dict[str, object]:
+    """Coordinates of a variable's element dimensions (integers from ``start``; the
     complex axis labelled ``real``/``imag``)."""
     if isinstance(spec, int):
         return {}
     out: dict[str, object] = {}
     for dim, size in zip(spec.dims(name), spec.shape, strict=True):
-        out[dim] = list(COMPLEX_PARTS) if dim == f"{name}_complex" else np.arange(size)
+        out[dim] = (list(COMPLEX_PARTS) if dim == f"{name}_complex"
+                    else np.arange(start, start + size))
     return out

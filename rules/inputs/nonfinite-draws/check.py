@@ -32,9 +32,10 @@ def check(ctx) -> Iterator[Finding]:
     """One finding per variable with non-finite draws: which elements, how many draws."""
     least = int(ctx.thresholds["min_nonfinite"])
     analysis = ctx.analysis
-    # CmdStan and draws tables name elements from 1 (theta[1] is column theta.1).
-    one_based = analysis.settings.library == "CmdStan" or (
-        analysis.tree is not None and analysis.tree.attrs.get("source_format") == "draws-table")
+    # CmdStan names elements from 1 (theta[1] is column theta.1), as the diagnostics
+    # table labels them (auditor/engine.py); draws tables carry their own 1-based
+    # coordinates, other DataTree files their own labels.
+    one_based = analysis.settings.library == "CmdStan"
     for group in GROUPS:
         ds = analysis.group(group)
         if ds is None:
