@@ -9,15 +9,16 @@ bounds how many are in flight.
 
 Two parsers give the same values:
 
-- polars (large regions): each line is read as one text field, split at the
-  commas and cast to float64 in one pass, which keeps the values in row order
-  (a columnar CSV reader would scatter every row over all columns; on wide
-  files this was 20-25% faster than polars' own ``read_csv`` with a float
-  schema, see ``benchmarks/README.md``). polars parses numbers with correct
-  rounding, like Python's ``float``; a field polars does not take as a number
-  (``true``, ``1_0``, `` 1``) is read again with Python's ``float``.
-- Python (small regions, and regions with a byte that would confuse the polars
-  pipeline): ``float`` per field.
+- polars (regions of 64 KiB and more): the region's lines go to polars as one
+  text column, each line is split at the commas and every field cast to float64
+  inside its list, which keeps the values in row order (a columnar CSV reader
+  scatters every row over all columns; on wide files this was 20-25% faster than
+  polars' own ``read_csv`` with a float schema and needed half the memory of
+  exploding the fields first; ``benchmarks/README.md``). polars parses numbers
+  with correct rounding, like Python's ``float``; a field polars does not take as
+  a number (``true``, ``1_0``, `` 1``) is read again with Python's ``float``.
+- Python (small regions, text that is not UTF-8, one-column files, anything the
+  polars path declines): ``float`` per field.
 
 A field that is not a number becomes NaN and is reported; ``true``/``false``
 become 1 and 0 (Stan 2.35 writes booleans so in some places).
