@@ -13,9 +13,10 @@ parameters, about 100 MB per chain; see ``--params``), then in the same process 
 - ``pandas``: ``pandas.read_csv(path, comment="#", engine="c")`` per file.
 
 Each timing is the best of ``--repeat`` runs, interleaved so that load changes on a
-shared machine hit all of them alike. Peak memory of the load is measured in a child
-process (the script re-run with ``--child``): RSS after imports and a warm-up on a
-small file, the high-water mark reset through ``/proc/self/clear_refs``, then VmHWM
+shared machine hit all of them alike, after a warm-up load of a small run (imports).
+Peak memory of the load is measured in a child process (the script re-run with
+``--child``): RSS after imports and a warm-up on a small file, the high-water mark
+reset through ``/proc/self/clear_refs``, then VmHWM
 after ``assemble``; ``peak_over_array`` is ``(VmHWM - RSS before) / array``, where
 the array is the float64 draws of every column, i.e. what the load must allocate
 anyway. The last line is one JSON object.
@@ -172,6 +173,9 @@ def main() -> None:
             for p in paths:
                 pd.read_csv(p, comment="#", engine="c")
 
+        warm = folder / "warm"
+        warm.mkdir()
+        _ours(write_run(warm, 2, 20, 30))  # imports and first calls outside the timings
         runs = {"line_scan": line_scan, "polars": polars_default, "polars_schema": polars_schema,
                 "pandas": pandas_c, "ours": lambda: _ours(paths)}
         best = {k: float("inf") for k in runs}
