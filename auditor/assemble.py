@@ -298,6 +298,12 @@ def _assemble(spec: AnalysisSpec, gate: Boundary | None = None,
             values, problems = read_stan_data(spec.data, gate)
             analysis.data = dict(values)
             analysis.problems.extend(_problems(problems))
+            if (spec.observed and spec.data.suffix.lower() in (".csv", ".parquet")
+                    and values and spec.observed not in values):
+                analysis.problems.append(InputProblem(
+                    "unreadable", spec.data,
+                    f"the data table has no column {spec.observed!r} (the configured observed "
+                    f"variable); its columns: {', '.join(list(values)[:12])}", 1))
         else:
             analysis.problems.append(InputProblem("unreadable", spec.data, "data file not found"))
     elif analysis.tree is not None:

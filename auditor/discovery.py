@@ -2,7 +2,9 @@
 
 Discovery rules: each ``.nc`` file or ``.zarr`` store is one analysis; CmdStan
 CSV files are grouped into one analysis per run (same folder and file-name stem
-without the chain number; the loader checks that the chains agree); a Stan
+without the chain number; the loader checks that the chains agree); each draws
+table (a ``.parquet`` file, or a CSV that is not CmdStan's but has chain and draw
+columns; see :mod:`auditor.loaders.draws_table`) is one analysis; a Stan
 program pairs with the draws whose header says ``model = <stem>_model`` (the
 Stan compiler's naming); a PyMC source ``.py`` pairs with a ``.nc``/``.zarr`` of
 the same stem in the same folder. Programs left without draws become analyses of
@@ -23,6 +25,7 @@ from pathlib import Path
 
 from auditor.boundary import Boundary, Refused, display
 from auditor.loaders import sniff_cmdstan
+from auditor.loaders.draws_table import sniff_draws_table
 from auditor.model import AnalysisSpec, InputProblem
 from auditor.programs.read import read_program
 
@@ -66,6 +69,7 @@ def discover(
     candidates, problems = _candidates(root, files, boundary)
     csv_groups: dict[tuple[Path, str], list[Path]] = defaultdict(list)
     trees: list[Path] = []
+    tables: list[Path] = []
     stan_programs: list[Path] = []
     py_sources: list[Path] = []
     for path in candidates:
@@ -74,6 +78,8 @@ def discover(
             csv_groups[_run_key(path)].append(path)
         elif suffix in (".nc", ".zarr"):
             trees.append(path)
+        elif suffix == ".parquet" and not path.is_dir():
+            tables.append(path)
         elif suffix == ".stan":
             stan_programs.append(path)
         elif suffix == ".py" and not path.is_dir():
@@ -97,6 +103,9 @@ def discover(
             except OSError as exc:
                 header, why = None, f"cannot be read ({exc.strerror or exc})"
             if header is None:
+                if _is_draws_table(path, boundary):
+                    tables.append(path)
+                    continue
                 others.append((path, why))
                 continue
             chains.append(path)
@@ -134,6 +143,9 @@ def discover(
             paired.add(model)
         specs.append(AnalysisSpec(name=tree.stem, draws=[tree], model=model))
 
+    for table in sorted(tables):
+        specs.append(AnalysisSpec(name=table.stem, draws=[table]))
+
     for program in sorted(stan_programs):
         if program not in paired:
             specs.append(AnalysisSpec(
@@ -159,6 +171,14 @@ def discover(
     return specs, problems
 
 
+def _is_draws_table(path: Path, boundary: Boundary) -> bool:
+    try:
+        columns, _ = sniff_draws_table(path, boundary)
+    except (Refused, OSError):
+        return False
+    return columns is not None
+
+
 def _unique_names(specs: list[AnalysisSpec]) -> None:
     # Two runs with the same stem in different folders get the folder in the name.
     counts: dict[str, int] = defaultdict(int)
@@ -168,3 +188,11 @@ def _unique_names(specs: list[AnalysisSpec]) -> None:
         if counts[spec.name] > 1:
             where = (spec.draws[0] if spec.draws else spec.model or Path(spec.name)).parent.name
             spec.name = f"{where}/{spec.name}"
+    # Still the same (a run and a table of one stem in one folder): the draws file
+    # of the table (or tree) names it.
+    counts.clear()
+    for spec in specs:
+        counts[spec.name] += 1
+    for spec in specs:
+        if counts[spec.name] > 1 and len(spec.draws) == 1:
+            spec.name = f"{spec.name} ({spec.draws[0].name})"

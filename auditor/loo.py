@@ -9,7 +9,11 @@ Methods: PSIS-LOO (Vehtari, Gelman & Gabry 2017, Statistics and Computing
 27:1413-1432) with Pareto smoothed importance sampling (Vehtari, Simpson, Gelman,
 Yao & Gabry 2024, JMLR 25(72)); WAIC (Watanabe 2010) only beside it. Both come
 from our kernel :mod:`auditor.kernels.psis` (checked against arviz-stats in its
-tests).
+tests), with the settings of the reference implementation, arviz-stats 1.3, so a
+reviewer gets the same numbers from it: one relative efficiency from the posterior
+draws (``posterior_r_eff``, over the finite, non-constant quantities) and the tail
+length rounded down. (The loo package estimates the relative efficiency per
+observation instead, which costs about as much again; the kernel offers both.)
 """
 
 from __future__ import annotations
@@ -23,6 +27,9 @@ import numpy as np
 
 if TYPE_CHECKING:
     from auditor.model import Analysis
+
+#: Tail length rounding of PSIS: arviz-stats' (the paper and the loo package round up).
+TAIL_ROUNDING = "floor"
 
 #: Pointwise p_waic above this makes WAIC unreliable (Vehtari, Gelman & Gabry 2017,
 #: section 2.2: "p_waic,i > 0.4"; from memory of the loo package's warning).
@@ -94,6 +101,29 @@ def data_key(analysis: Analysis, observed: str, y: np.ndarray | None) -> tuple[s
     return f"analysis:{analysis.name}:{observed}", observed
 
 
+def posterior_r_eff_of(analysis: Analysis) -> float:
+    """One relative efficiency from the posterior draws (arviz-stats 1.3's default for
+    ``loo``), over the quantities with finite, non-constant draws; 1 when there are none."""
+    from auditor.kernels.psis import posterior_r_eff
+
+    post = analysis.group("posterior")
+    if post is None:
+        return 1.0
+    arrays = []
+    for name, da in post.data_vars.items():
+        if str(name).endswith("__") or "chain" not in da.dims or "draw" not in da.dims:
+            continue
+        arr = np.asarray(da.transpose("chain", "draw", ...).values, dtype=float)
+        arr = arr.reshape(arr.shape[0], arr.shape[1], -1)
+        keep = np.all(np.isfinite(arr), axis=(0, 1)) & (np.ptp(arr, axis=(0, 1)) > 0)
+        if keep.any():
+            arrays.append(arr[..., keep])
+    if not arrays:
+        return 1.0
+    value = posterior_r_eff(arrays)
+    return value if np.isfinite(value) and value > 0 else 1.0
+
+
 def n_parameters(analysis: Analysis) -> int | None:
     """Scalar parameters: the program's parameters block when known, else every
     scalar of the posterior (an upper bound: it counts derived quantities too)."""
@@ -120,6 +150,11 @@ class LooTable:
     errors: list[str] = field(default_factory=list)
 
     @cached_property
+    def r_eff(self) -> float:
+        """The relative efficiency of the posterior draws (see the module's docstring)."""
+        return posterior_r_eff_of(self.analysis)
+
+    @cached_property
     def variables(self) -> list[VariableLoo]:
         """One entry per observed variable with a usable pointwise log-likelihood."""
         from auditor.kernels.psis import psis_loo, waic
@@ -144,7 +179,8 @@ class LooTable:
                     + "; PSIS-LOO was not computed")
                 continue
             try:
-                loo, w = psis_loo(arr), waic(arr)
+                loo = psis_loo(arr, r_eff=self.r_eff, tail_rounding=TAIL_ROUNDING)
+                w = waic(arr)
             except (ValueError, FloatingPointError) as exc:
                 self.errors.append(f"PSIS-LOO of {p.observed} failed: {exc}")
                 continue

@@ -56,6 +56,17 @@ class SamplerSettings:
     chain_ids: list[int] = field(default_factory=list)
     seeds: list[int] = field(default_factory=list)
     model_name: str | None = None
+    # --- Issue 13 (readers): the CmdStan adaptation block and timing footer, one
+    # entry per chain in chain order ([] when the files do not say).
+    #: Step size at the end of adaptation.
+    adapted_step_size: list[float] = field(default_factory=list)
+    #: Form of the adapted inverse metric: ``"diag"`` or ``"dense"``.
+    inverse_metric: str | None = None
+    #: Diagonal of each chain's adapted inverse metric (all of a diagonal metric).
+    inverse_metric_diagonal: list[list[float]] = field(default_factory=list)
+    #: Seconds of warmup and of sampling (NaN for a chain that does not say).
+    warmup_seconds: list[float] = field(default_factory=list)
+    sampling_seconds: list[float] = field(default_factory=list)
 
     def as_dict(self) -> dict[str, Any]:
         """JSON-safe view with ``None`` values kept (they mean "not stated")."""

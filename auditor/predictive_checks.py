@@ -234,7 +234,8 @@ def replicated_statistic(rep: np.ndarray, name: str) -> np.ndarray:
 # --------------------------------------------------------------------------- LOO-PIT
 
 
-def psis_log_weights(log_lik: np.ndarray, n_chains: int) -> tuple[np.ndarray, np.ndarray]:
+def psis_log_weights(log_lik: np.ndarray, n_chains: int,
+                     r_eff: float = 1.0) -> tuple[np.ndarray, np.ndarray]:
     """Normalized Pareto-smoothed log importance weights for leaving out each observation.
 
     ``log_lik`` is (draws, observations) with chains stacked in order; returns the
@@ -247,7 +248,9 @@ def psis_log_weights(log_lik: np.ndarray, n_chains: int) -> tuple[np.ndarray, np
 
     chains = max(n_chains, 1)
     draws = log_lik.shape[0] // chains
-    log_w, k = kernel(log_lik.reshape(chains, draws, -1))
+    # The same settings as the audit's PSIS-LOO (auditor/loo.py), so the Pareto k
+    # here are the comparison stage's.
+    log_w, k = kernel(log_lik.reshape(chains, draws, -1), r_eff=r_eff, tail_rounding="floor")
     return np.asarray(log_w).reshape(chains * draws, -1), np.asarray(k).reshape(-1)
 
 

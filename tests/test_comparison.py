@@ -75,7 +75,12 @@ def test_psis_loo_of_the_conjugate_normal_model_through_the_audit(tmp_path):
     assert loo["high_k"] == 0 and loo["parameters"] == 1
 
 
-def test_the_audit_reports_the_kernels_numbers_for_real_cmdstan_draws(tmp_path):
+def test_the_audits_loo_equals_arviz_stats_on_real_cmdstan_draws(tmp_path):
+    import arviz_stats as azs
+
+    from auditor.config import load_config
+    from auditor.engine import build_project
+
     src = require_shared() / "cmdstan-outputs" / "arviz-eight-schools-nc"
     project = tmp_path / "schools"
     shutil.copytree(src, project)
@@ -84,14 +89,16 @@ def test_the_audit_reports_the_kernels_numbers_for_real_cmdstan_draws(tmp_path):
         'data = "eight_schools.data.R"\nobserved = "y"\nlog_lik = "log_lik"\n')
     result = run_audit([project])
     (loo,) = result.analyses[0].loo
-    from auditor.loaders import load_draws
-
-    loaded = load_draws(sorted(project.glob("eight_schools_output*.csv")))
-    arr = loaded.tree["posterior"]["log_lik"].values
-    direct = psis_loo(arr)  # the kernel, checked against arviz-stats in its own tests
-    assert loo["elpd_loo"] == pytest.approx(direct.elpd_loo, rel=1e-12)
-    assert loo["p_loo"] == pytest.approx(direct.p_loo, rel=1e-12)
-    assert loo["max_k"] == pytest.approx(float(np.nanmax(direct.pareto_k)), rel=1e-12)
+    # The reference implementation on the same normalized draws, with its defaults
+    # (arviz-stats 1.3.3: one r_eff from the posterior, tail length rounded down).
+    (analysis,) = build_project([project], load_config(project, None, {}), project).analyses
+    tree = xr.DataTree.from_dict({"posterior": analysis.group("posterior"),
+                                  "log_likelihood": analysis.group("log_likelihood")})
+    ref = azs.loo(tree)
+    assert loo["elpd_loo"] == pytest.approx(float(ref.elpd), rel=1e-9)
+    assert loo["se"] == pytest.approx(float(ref.se), rel=1e-9)
+    assert loo["p_loo"] == pytest.approx(float(ref.p), rel=1e-9)
+    assert loo["max_k"] == pytest.approx(float(np.nanmax(ref.pareto_k.values)), rel=1e-9)
 
 
 # --------------------------------------------------------------------------- the example

@@ -16,7 +16,9 @@ machine facts the size limit is computed from (``/proc/meminfo``,
 matplotlib's font cache (``MPLCONFIGDIR``, warmed beforehand so that the audited
 run only reads it), and ``/dev/null``, which the standard library's ``platform``
 opens when h5py, at import, asks it for the processor name (through ``uname -p``,
-the one process the run may start). The PDF is laid out in a second child that reads its job from
+the one process the run may start). With dask installed (the ``scale`` extra), psutil
+reads ``/proc/stat`` and the child's own ``/proc/<pid>/stat`` and ``/proc/self/cgroup``
+when xarray looks for dask. The PDF is laid out in a second child that reads its job from
 stdin and writes the PDF to stdout; it is not part of this run.
 """
 
@@ -56,12 +58,11 @@ def hook(event, args):
         events.append([event, os.fsdecode(first) if isinstance(first, (str, bytes))
                        else str(first)])
 
-events.append(["pid", str(os.getpid())])
 sys.addaudithook(hook)
 from auditor.cli import main
 code = main(sys.argv[1:])
 sys.stdout.flush()
-sys.stderr.write("\n@@EVENTS@@" + json.dumps(events) + "\n")
+sys.stderr.write("\n@@EVENTS@@" + json.dumps({"pid": os.getpid(), "events": events}) + "\n")
 sys.exit(code)
 """
 
@@ -106,15 +107,16 @@ def _hostile(base: Path) -> Path:
     return root
 
 
-def _allowed_reads(root: Path, mplconfig: Path, pid: str) -> list[str]:
+def _allowed_reads(root: Path, mplconfig: Path, pid: int) -> list[str]:
     installation = {sys.prefix, sys.base_prefix, sys.exec_prefix,
                     *(p for p in sys.path if p and os.path.isdir(p))}
     tool = [REPO / "auditor", REPO / "rules", REPO / "templates"]
-    # /proc/stat, the process's own /proc/<pid>/stat and /proc/self/cgroup: CPU times and
-    # quota that psutil and Dask read when imported (xarray imports Dask, and Dask psutil,
-    # whenever Dask is installed: the scale extra).
     facts = ["/proc/meminfo", "/proc/self/status", "/sys/fs/cgroup/", "/usr/share/zoneinfo/",
-             "/proc/stat", f"/proc/{pid}/stat", "/proc/self/cgroup", os.devnull]
+             os.devnull,
+             # With dask installed (the scale extra), xarray looks for it when it makes a
+             # variable, and dask's distributed imports psutil, which reads the machine's boot
+             # time and CPU times, the child's own start time and its control group.
+             "/proc/stat", f"/proc/{pid}/stat", "/proc/self/cgroup"]
     return [os.path.realpath(p) for p in (root, mplconfig, *installation, *tool)] + facts
 
 
@@ -148,10 +150,9 @@ def recorded(tmp_path_factory, request):
          "--report", "json", "--report", "html", "--report", "md", "--report", "sarif"],
         cwd=base, env=env, capture_output=True, text=True, timeout=300)
     assert "@@EVENTS@@" in proc.stderr, proc.stderr[-2000:]
-    events = json.loads(proc.stderr.split("@@EVENTS@@")[1])
-    pid = next(e[1] for e in events if e[0] == "pid")
-    return {"root": root, "out": out, "base": base, "events": events, "proc": proc,
-            "allowed": _allowed_reads(root, mplconfig, pid), "mode": request.param}
+    child = json.loads(proc.stderr.split("@@EVENTS@@")[1])
+    return {"root": root, "out": out, "base": base, "events": child["events"], "proc": proc,
+            "allowed": _allowed_reads(root, mplconfig, child["pid"]), "mode": request.param}
 
 
 def test_the_audit_ran_and_found_the_requests(recorded):

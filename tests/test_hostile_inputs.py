@@ -511,3 +511,53 @@ def test_socket_is_reported_never_opened(tmp_path):
     (hit,) = _findings(report, "inputs.special-file")
     assert hit["location"]["path"] == "fits/fit-9.csv" and "socket" in hit["message"]
     assert _analysis(report, "fit")["chains"] == 4
+
+
+# --------------------------------------------------------------------------- issue 13
+
+
+def test_chain_killed_mid_write_and_broken_tables_beside_good_runs(tmp_path):
+    # A second run whose chain 4 was killed mid-row (no line end, no timing footer),
+    # a Parquet file that is not one, an empty one: each is reported with its file
+    # (and line), and every other analysis is still audited; no traceback.
+    root = _project(tmp_path)
+    for src in sorted((root / "fits").glob("fit-*.csv")):
+        shutil.copy(src, root / "fits" / src.name.replace("fit-", "other-"))
+    cut = root / "fits" / "other-4.csv"
+    lines = cut.read_text().splitlines()
+    k = next(i for i, ln in enumerate(lines) if ln.startswith("lp__"))
+    rows = [i for i, ln in enumerate(lines) if i > k and ln and not ln.startswith("#")]
+    at = rows[120]
+    cut.write_text("\n".join(lines[:at]) + "\n" + lines[at][: len(lines[at]) // 2])
+    (root / "fits" / "junk.parquet").write_bytes(b"not parquet at all" * 10)
+    (root / "fits" / "empty.parquet").write_bytes(b"")
+    proc = _guarded(["audit", str(root), "--out", str(tmp_path / "r")], tmp_path)
+    assert proc.returncode == 1 and "Traceback" not in proc.stderr, proc.stderr
+    report = json.loads((tmp_path / "r" / "audit.json").read_text())
+    assert _analysis(report, "fit")["chains"] == 4
+    assert _analysis(report, "other")["chains"] == 3
+    found = {(f["rule"], f["location"]["path"], f["location"]["line"]): f["message"]
+             for f in _findings(report) if f["location"]}
+    assert "ends inside a row" in found[("inputs.unreadable", "fits/other-4.csv", at + 1)]
+    assert any(r == "inputs.inconsistent-chains" and p == "fits/other-4.csv" for r, p, _ in found)
+    assert any(p == "fits/junk.parquet" and "not a Parquet file" in m
+               for (r, p, _), m in found.items())
+    assert any(p == "fits/empty.parquet" and "empty" in m for (r, p, _), m in found.items())
+
+
+def test_nan_and_infinite_draws_are_reported_per_quantity(tmp_path):
+    root = _project(tmp_path)
+    path = root / "fits" / "fit-2.csv"
+    lines = path.read_text().splitlines()
+    k = next(i for i, ln in enumerate(lines) if ln.startswith("lp__"))
+    col = lines[k].split(",").index("alpha")
+    rows = [i for i, ln in enumerate(lines) if i > k and ln and not ln.startswith("#")]
+    for i, value in zip(rows[:3], ["nan", "inf", "-inf"], strict=True):
+        fields = lines[i].split(",")
+        fields[col] = value
+        lines[i] = ",".join(fields)
+    path.write_text("\n".join(lines) + "\n")
+    code, report = _audit(root, tmp_path)
+    (hit,) = _findings(report, "inputs.nonfinite-draws")
+    assert hit["quantity"] == "alpha" and "1 NaN and 2 infinite" in hit["message"]
+    assert _analysis(report, "fit")["chains"] == 4

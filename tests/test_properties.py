@@ -47,6 +47,8 @@ RULES = all_rules()
 COUNTS = {
     "cmdstan": 2200,
     "cmdstan_lazy": 300,
+    "tables": 500,
+    "rows": 300,
     "stan": 2400,
     "includes": 600,
     "pymc": 2400,
@@ -206,6 +208,71 @@ def test_cmdstan_reader_in_pieces_reads_what_the_whole_reader_reads(tmp_path_fac
         for action in cleanup:
             action()
     assert list(systemp.iterdir()) == []
+# --------------------------------------------------------------------------- draws tables
+
+
+_TABLE = (".chain,.iteration,.draw,mu,theta[1],theta[2],Sigma.1.2.,divergent__,lp__\n"
+          + "".join(f"{c},{i},{(c - 1) * 4 + i},0.{c}{i},1.5,-2.{i},3e-{i},{i % 2},-{c}.5\n"
+                    for c in (1, 2) for i in (1, 2, 3, 4)))
+
+
+@given(text=_mutated(_TABLE), parquet=st.booleans())
+@_settings("tables")
+def test_draws_table_reader_never_raises(tmp_path_factory, text, parquet):
+    folder = tmp_path_factory.mktemp("table")
+    path = folder / "draws.csv"
+    _write(path, text)
+    if parquet:
+        # The same (damaged) table as Parquet when polars can read it, else the bytes.
+        import polars as pl
+
+        try:
+            pl.read_csv(path).write_parquet(folder / "draws.parquet")
+        except Exception:  # noqa: BLE001 - the damaged text itself becomes the file
+            (folder / "draws.parquet").write_bytes(path.read_bytes())
+        path = folder / "draws.parquet"
+    with _Counted():
+        loaded = load_draws([path], Boundary(folder))
+    for problem in loaded.problems:
+        assert _inside(folder, problem.path), problem
+        assert isinstance(problem.message, str) and problem.message
+    if loaded.tree is not None and "posterior" in loaded.tree.children:
+        post = loaded.tree["posterior"]
+        assert {"chain", "draw"} <= set(post.dims)
+
+
+_FIELDS = st.one_of(st.floats(allow_nan=True, allow_infinity=True).map(repr),
+                    st.floats(width=32).map(lambda v: f"{v:.6g}"), _ODD_TEXT)
+
+
+@given(rows=st.lists(st.lists(_FIELDS, min_size=0, max_size=6), min_size=1, max_size=12),
+       ending=st.sampled_from(["\n", "\r\n"]))
+@_settings("rows")
+def test_row_parsers_agree(rows, ending):
+    # csv_rows: the polars and the plain Python parser give the same values and
+    # say the same about every line (issue 13: a fast path must not change results).
+    from auditor.loaders import csv_rows
+
+    ncol = 4
+    text = "".join(",".join(r) + ending for r in rows)
+    region = text.encode("utf-8", "surrogatepass")
+    n = len(rows)
+    if text.count("\n") != n or "\r" in text.replace("\r\n", ""):
+        return  # generated fields that hold line ends are not one line each
+    a, b = np.full((n, ncol), -7.0), np.full((n, ncol), -7.0)
+    with _Counted():
+        try:
+            fast = csv_rows._parse_polars(region, n, ncol, a, 0)
+        except Exception:  # noqa: BLE001 - parse_region falls back to the plain parser so
+            fast = None
+        slow = csv_rows._parse_python(region, n, ncol, b, 0)
+    if fast is None:
+        return  # polars declined (text that is not UTF-8): the plain parser decides alone
+    np.testing.assert_array_equal(a, b)
+    assert (fast.n_odd, fast.odd) == (slow.n_odd, slow.odd)
+    good_fast = np.ones(n, bool) if fast.good is None else fast.good
+    good_slow = np.ones(n, bool) if slow.good is None else slow.good
+    np.testing.assert_array_equal(good_fast, good_slow)
 
 
 # --------------------------------------------------------------------------- Stan programs

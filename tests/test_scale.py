@@ -23,6 +23,7 @@ import xarray as xr
 from auditor.cli import main
 from auditor.diagnostics import flat_boxes, is_lazy, read_flat
 from auditor.engine import run_audit
+from auditor.loaders import load_draws
 from auditor.reporters import write_reports
 
 REPO = Path(__file__).resolve().parent.parent
@@ -319,3 +320,71 @@ def test_no_conversion_inside_the_project_the_run_is_read_whole(tmp_path, monkey
     notes = [f for f in lazily.all_findings if "could not be converted" in f.message]
     assert len(notes) == 1 and notes[0].rule_id == "inputs.remark"
     assert lazily.analyses[0].diagnostics == whole.analyses[0].diagnostics
+
+
+def test_each_analysis_is_released_before_the_next_is_loaded(demo, monkeypatch):
+    """Streaming (issue 15, part 1): when an analysis is assembled, every analysis assembled
+    before it is gone from memory (only its compact result is kept)."""
+    import gc
+    import weakref
+
+    import auditor.engine
+
+    real = auditor.engine.assemble
+    earlier: list[weakref.ref] = []
+    alive_at_load: list[int] = []
+
+    def watched(*args, **kwargs):
+        gc.collect()
+        alive_at_load.append(sum(ref() is not None for ref in earlier))
+        analysis = real(*args, **kwargs)
+        earlier.append(weakref.ref(analysis))
+        return analysis
+
+    monkeypatch.setattr(auditor.engine, "assemble", watched)
+    project, _, _ = demo
+    result = run_audit([project])
+    assert len(earlier) == len(result.analyses) >= 5
+    assert alive_at_load == [0] * len(earlier)
+
+
+def _mapped_rss_kb(name: str) -> int:
+    """Resident kB of this process's mappings of files named ``name`` (``/proc/self/smaps``)."""
+    total, inside = 0, False
+    with open("/proc/self/smaps", encoding="utf-8", errors="replace") as fh:
+        for line in fh:
+            first = line.split(None, 1)[0]
+            if "-" in first and not first.endswith(":"):
+                inside = name in line
+            elif inside and first == "Rss:":
+                total += int(line.split()[1])
+    return total
+
+
+@pytest.mark.skipif(not Path("/proc/self/smaps").exists(), reason="Linux /proc needed")
+def test_a_converted_run_holds_no_pages_of_its_rows(own_tempdir):
+    """The rows of a CmdStan run converted for reading in blocks go to a mapped file whose pages
+    are handed back as they are written: after the conversion the process holds none of them;
+    the file was unlinked once mapped, and the store is removed by the cleanup."""
+    from auditor.boundary import Boundary
+    from auditor.loaders.cmdstan_csv import Run, read_run
+    from auditor.loaders.lazy import load_lazily
+
+    paths = sorted((DEMO / "fits").glob("yards_centered-[0-9].csv"))
+    run = read_run(paths, Boundary(DEMO), scratch=own_tempdir)
+    assert isinstance(run, Run)
+    assert list(own_tempdir.iterdir()) == []  # unlinked once mapped
+    assert _mapped_rss_kb("rows-1.f64") == 0
+    values = np.array(run.rows(False))  # read back after the release: the same rows
+    assert _mapped_rss_kb("rows-1.f64") > 0
+    run.store.release()
+    assert _mapped_rss_kb("rows-1.f64") == 0
+    whole = load_draws(paths, Boundary(DEMO)).tree["posterior"].to_dataset()
+    assert np.array_equal(values[..., run.columns.index("mu")], whole["mu"].values)
+    del run, values
+    loaded, cleanup = load_lazily(paths, Boundary(DEMO))
+    assert is_lazy(loaded.tree["posterior"].to_dataset()["theta"].data)
+    assert [p.name for p in own_tempdir.iterdir()] != []
+    for action in cleanup:
+        action()
+    assert list(own_tempdir.iterdir()) == []

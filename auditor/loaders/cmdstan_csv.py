@@ -6,21 +6,31 @@ one row per saved iteration. Warmup rows come first when ``save_warmup`` is set;
 the adaptation block (``# Adaptation terminated``, step size, inverse metric) is
 written as comments after the warmup rows, and the timing block closes the file.
 Array elements are columns ``name.i.j`` with 1-based indices, written in
-column-major order.
+column-major order (see :mod:`auditor.loaders.stan_names`).
 
 Two header layouts exist: Stan 1.x writes ``# data = file`` on one line, later
 versions write ``# data`` with ``#   file = ...`` below it. Both are read as a tree
 of dotted paths (``data`` or ``data.file``), so lookups go by the last path part.
+
+Reading is built for wide runs (issue 13): the headers of all chains are read
+first, so that the draws of the chains that agree go straight into one
+preallocated ``(chain, row, column)`` array; each file is then read in chunks of
+:data:`CHUNK` bytes and its data lines are parsed on several threads
+(:mod:`auditor.loaders.csv_rows`). Variables are views of that array where the
+file's column order allows (it always does for CmdStan's own files), so peak
+memory stays close to the draws themselves. Numbers in ``benchmarks/README.md``.
 """
 
 from __future__ import annotations
 
 import hashlib
 import math
+import mmap
+import os
 import re
-import warnings
 from collections import Counter
-from collections.abc import Sequence
+from collections.abc import Callable, Sequence
+from concurrent.futures import Future, ThreadPoolExecutor
 from dataclasses import dataclass, field
 from pathlib import Path
 
@@ -28,6 +38,8 @@ import numpy as np
 import xarray as xr
 
 from auditor.boundary import Boundary, Refused
+from auditor.loaders import stan_names
+from auditor.loaders.csv_rows import RegionResult, parse_region
 from auditor.loaders.problems import Loaded, LoadProblem, refused_problem
 from auditor.loaders.stats_vocab import CMDSTAN, normalize_sample_stats
 from auditor.model import SamplerSettings
@@ -36,6 +48,8 @@ _KEY_LINE = re.compile(r"^#(\s*)([A-Za-z_][A-Za-z0-9_]*)\s*(?:=\s*(.*?))?\s*$")
 _DEFAULT_TAG = re.compile(r"\s*\(Default\)\s*$")
 _STEP_SIZE = re.compile(r"^#\s*Step size\s*=\s*(\S+)")
 _ELAPSED = re.compile(r"^#\s*(?:Elapsed Time:)?\s*([0-9.eE+-]+)\s*seconds\s*\((\w[\w-]*)\)")
+_DIAG_METRIC = re.compile(r"^#\s*Diagonal elements of inverse mass matrix", re.IGNORECASE)
+_DENSE_METRIC = re.compile(r"^#\s*Elements of inverse mass matrix", re.IGNORECASE)
 
 #: Sampler columns CmdStan writes for HMC; without them an HMC-labelled run is
 #: a fixed_param run (CmdStan switches to fixed_param for models without parameters).
@@ -43,6 +57,26 @@ _HMC_COLUMNS = ("stepsize__", "treedepth__")
 
 #: Problems of one kind reported per file before they are summarized.
 _MAX_ROW_PROBLEMS = 5
+
+#: Bytes read from a file at a time, and so the largest region parsed at once
+#: (unless one line is longer). polars' peak while parsing a region was about
+#: 15 times the region (its text, the fields, allocator slack); 2 MiB regions were
+#: as fast as 8 MiB ones and kept the load's peak well under 1.5 times the draws
+#: array with two parsers at work (benchmarks/README.md).
+CHUNK = 2 * 1024 * 1024
+
+#: Header settings compared between the chains of one run: a difference is
+#: reported as a note (path part that must appear, leaf, label).
+_COMPARED = (
+    ("adapt", "delta", "adapt delta"),
+    ("nuts", "max_depth", "max depth"),
+    ("hmc", "metric", "metric"),
+    ("hmc", "engine", "engine"),
+    ("sample", "num_warmup", "num_warmup"),
+    ("sample", "thin", "thin"),
+    ("adapt", "engaged", "adaptation"),
+    ("hmc", "stepsize_jitter", "stepsize_jitter"),
+)
 
 
 @dataclass
@@ -103,19 +137,39 @@ class CmdStanHeader:
 
 
 @dataclass
-class _Chain:
-    """One parsed file."""
+class _Head:
+    """A file whose header was read: where its rows start and how it looked then."""
 
     header: CmdStanHeader
-    data: np.ndarray  # rows x columns, float
-    n_rows_seen: int  # data rows in the file, including unusable ones
-    n_warmup: int  # leading rows of ``data`` that are warmup
+    body_offset: int  # byte just after the column line
+    size: int
+    mtime_ns: int
+
+
+@dataclass
+class _Chain:
+    """One file whose rows were read into slot ``slot`` of the shared array."""
+
+    head: _Head
+    slot: int
+    n_rows: int = 0  # usable rows, compacted to the start of the slot
+    n_rows_seen: int = 0  # data lines that are not blank, including unusable ones
+    n_warmup: int = 0  # leading usable rows that are warmup
+    start: int = 0  # first row that is a draw (1 for variational output)
     step_size: float = math.nan
+    metric: str | None = None  # "diag" or "dense", as the adaptation block says
+    inv_metric: np.ndarray | None = None  # its diagonal
     elapsed: dict[str, float] = field(default_factory=dict)
+    grew: str | None = None  # how the file changed while it was read
+    cut_last_line: bool = False  # the file ends inside a line
+
+    @property
+    def header(self) -> CmdStanHeader:
+        return self.head.header
 
     @property
     def n_kept(self) -> int:
-        return self.data.shape[0] - self.n_warmup
+        return self.n_rows - self.n_warmup - self.start
 
 
 # --------------------------------------------------------------------------- header
@@ -180,54 +234,82 @@ def _parse_header_lines(path: Path, lines: Sequence[str]) -> CmdStanHeader | Non
 #: has a column line of about 20 MB).
 _HEAD_LIMIT = 64 * 1024 * 1024
 _HEAD_CHUNK = 1 << 20
-_BOM = "\ufeff"
+_BOM = b"\xef\xbb\xbf"
+#: With a file-backed store, its pages are released after about this many bytes of rows.
+RELEASE_BYTES = 256 * 2**20
 
 
-def _looks_binary(data: bytes) -> bool:
+def _looks_binary(data: bytes | bytearray) -> bool:
     return b"\x00" in data[:4096]
 
 
-def _head_lines(path: Path, gate: Boundary) -> tuple[list[str] | None, str | None]:
-    """The lines of a file up to its column line, or (None, reason it is not CSV text).
+@dataclass
+class _RawHead:
+    lines: list[str]  # up to and including the column line
+    body_offset: int
+    bom: bool
+    size: int
+    mtime_ns: int
 
-    Reads in chunks and stops at the first complete line that is not a comment,
-    so a huge or endless file costs at most :data:`_HEAD_LIMIT` bytes.
+
+def _read_head(path: Path, gate: Boundary, check_size: bool = False) -> tuple[_RawHead | None, str]:
+    """The lines of a file up to its column line, or (None, why it is not CSV text).
+
+    Reads in chunks and stops at the first complete line that is neither blank nor
+    a comment, so a huge or endless file costs at most :data:`_HEAD_LIMIT` bytes.
 
     Raises
     ------
     Refused
-        The boundary refused the file (outside, special file).
+        The boundary refused the file (outside, special file, too large when
+        ``check_size``).
     """
     buf = bytearray()
-    with gate.open(path, check_size=False) as fh:
+    end = None  # byte just after the column line
+    with gate.open(path, check_size=check_size) as fh:
+        st = os.fstat(fh.fileno())
+        scanned = 0  # lines before this offset are complete and not the column line
         while len(buf) < _HEAD_LIMIT:
             chunk = fh.read(_HEAD_CHUNK)
             if not chunk:
                 break
-            start = len(buf)
+            first = not buf
             buf += chunk
-            if start == 0 and _looks_binary(buf):
+            if first and _looks_binary(buf):
                 return None, "a binary file, not CSV text"
-            if _first_data_line_done(buf, start):
+            end, scanned = _column_line_end(buf, scanned)
+            if end is not None:
                 break
     if not buf:
         return None, "an empty file (0 bytes)"
     if _looks_binary(buf):
         return None, "a binary file, not CSV text"
-    text = buf.decode("utf-8", errors="replace").removeprefix(_BOM)
-    return text.splitlines(keepends=True), None
+    bom = buf.startswith(_BOM)
+    head = bytes(buf[: end if end is not None else len(buf)])
+    if end is None and len(buf) >= _HEAD_LIMIT:
+        return None, (f"no line of column names in the first {_HEAD_LIMIT // 2**20} MB "
+                      "(only comments or one endless line)")
+    text = head.decode("utf-8", errors="replace").removeprefix("\ufeff")
+    lines = text.split("\n")
+    if text.endswith("\n"):
+        lines.pop()
+    return _RawHead(lines, end if end is not None else len(buf), bom, st.st_size,
+                    st.st_mtime_ns), ""
 
 
-def _first_data_line_done(buf: bytearray, start: int) -> bool:
-    """Whether ``buf`` holds a complete line that is neither blank nor a comment."""
-    pos = 0
+def _column_line_end(buf: bytearray, pos: int) -> tuple[int | None, int]:
+    """Offset just after the first complete line that is neither blank nor a
+    comment (``None`` when there is none yet), and where to resume looking."""
     while True:
         end = buf.find(b"\n", pos)
         if end < 0:
-            return False
-        line = bytes(buf[pos:end]).lstrip(b"\xef\xbb\xbf").strip()
+            return None, pos
+        line = bytes(buf[pos:end])
+        if pos == 0:
+            line = line.removeprefix(_BOM)
+        line = line.strip()
         if line and not line.startswith(b"#"):
-            return True
+            return end + 1, pos
         pos = end + 1
 
 
@@ -242,14 +324,17 @@ def sniff_cmdstan(path: Path, gate: Boundary | None = None) -> tuple[CmdStanHead
         The boundary refused the file.
     """
     gate = gate or Boundary.unconfined()
-    lines, reason = _head_lines(Path(path), gate)
-    if lines is None:
+    raw, reason = _read_head(Path(path), gate)
+    if raw is None:
         return None, reason or "not CSV text"
-    header = _parse_header_lines(Path(path), lines)
+    header = _parse_header_lines(Path(path), raw.lines)
     if header is None:
-        return None, ("not a CmdStan CSV: no 'stan_version_major' header comment and no "
-                      "sampler columns ending in '__'")
+        return None, _NOT_CMDSTAN
     return header, ""
+
+
+_NOT_CMDSTAN = ("not a CmdStan CSV: no 'stan_version_major' header comment and no "
+                "sampler columns ending in '__'")
 
 
 def read_cmdstan_header(path: Path, gate: Boundary | None = None) -> CmdStanHeader | None:
@@ -344,129 +429,30 @@ def _all_numbers(fields: Sequence[str]) -> bool:
     return True
 
 
-def _parse_rows(
-    header: CmdStanHeader, rows: list[str], numbers: list[int], problems: list[LoadProblem]
-) -> tuple[np.ndarray, np.ndarray]:
-    """Numbers of the data rows, and which rows were used.
-
-    Rows with the wrong field count are left out.
-    """
-    path, n_cols = header.path, len(header.columns)
-    counts = [text.count(",") + 1 for text in rows]
-    bad_rows = [i for i, n in enumerate(counts) if n != n_cols]
-    if rows and len(bad_rows) == len(rows):
-        seen = sorted(set(counts))
-        problems.append(
-            LoadProblem(
-                path,
-                f"the column line names {n_cols} columns but every data row has "
-                f"{' or '.join(str(n) for n in seen)} fields; no draws can be read",
-                line=header.column_line,
-            )
-        )
-        return np.empty((0, n_cols)), np.zeros(len(rows), dtype=bool)
-    for i in bad_rows[:_MAX_ROW_PROBLEMS]:
-        problems.append(
-            LoadProblem(
-                path,
-                f"row has {counts[i]} fields but the header has {n_cols} columns; "
-                "the row is left out",
-                line=numbers[i],
-            )
-        )
-    if len(bad_rows) > _MAX_ROW_PROBLEMS:
-        problems.append(
-            LoadProblem(
-                path,
-                f"{len(bad_rows)} rows in all have the wrong number of fields; all left out",
-            )
-        )
-    used = np.ones(len(rows), dtype=bool)
-    used[bad_rows] = False
-    good = [t for t, u in zip(rows, used, strict=True) if u]
-    good_numbers = [n for n, u in zip(numbers, used, strict=True) if u]
-    if not good:
-        return np.empty((0, n_cols)), used
-    # numpy's C parser reads the joined text without making one Python string per
-    # field (a list of strings costs several times the memory of the numbers).
+def _open_head(path: Path, problems: list[LoadProblem], gate: Boundary) -> _Head | None:
+    """The header of one file; ``None`` (with a problem) when the file is unusable."""
     try:
-        with warnings.catch_warnings():
-            warnings.simplefilter("error")
-            flat = np.fromstring(",".join(good), dtype=float, sep=",")
-    except (ValueError, DeprecationWarning):
-        flat = None
-    if flat is None or flat.size != len(good) * n_cols:
-        return _parse_rows_slowly(path, good, good_numbers, n_cols, problems), used
-    return flat.reshape(len(good), n_cols), used
-
-
-def _parse_rows_slowly(
-    path: Path, rows: list[str], numbers: list[int], n_cols: int, problems: list[LoadProblem]
-) -> np.ndarray:
-    """Field by field, for rows with text that is not a number (it becomes NaN)."""
-    out = np.empty((len(rows), n_cols))
-    bad = 0
-    for i, (text, number) in enumerate(zip(rows, numbers, strict=True)):
-        for j, field_text in enumerate(text.split(",")):
-            try:
-                out[i, j] = float(field_text)
-            except ValueError:
-                as_bool = _as_bool(field_text)
-                if as_bool is not None:
-                    out[i, j] = float(as_bool)
-                    continue
-                out[i, j] = math.nan
-                bad += 1
-                if bad <= _MAX_ROW_PROBLEMS:
-                    problems.append(
-                        LoadProblem(
-                            path,
-                            f"field {j + 1} is {field_text.strip()[:40]!r}, not a number; "
-                            "read as missing (NaN)",
-                            line=number,
-                        )
-                    )
-    if bad > _MAX_ROW_PROBLEMS:
-        problems.append(
-            LoadProblem(path, f"{bad} fields in all are not numbers; all read as missing (NaN)")
-        )
-    return out
-
-
-def _parse_file(path: Path, problems: list[LoadProblem], gate: Boundary) -> _Chain | None:
-    """Parse one CmdStan CSV; ``None`` (with a problem) when it is unusable."""
-    try:
-        raw = gate.read_bytes(path)
+        raw, reason = _read_head(path, gate, check_size=True)
     except Refused as exc:
         problems.append(refused_problem(path, exc))
         return None
     except OSError as exc:
         problems.append(LoadProblem(path, f"cannot read the file: {exc.strerror or exc}"))
         return None
-    if not raw:
-        problems.append(LoadProblem(path, "an empty file (0 bytes), not a CmdStan CSV"))
+    if raw is None:
+        if reason.startswith("an empty file"):
+            reason = "an empty file (0 bytes), not a CmdStan CSV"
+        elif reason.startswith("a binary file"):
+            reason = "a binary file, not a CmdStan CSV"
+        problems.append(LoadProblem(path, reason))
         return None
-    if _looks_binary(raw):
-        problems.append(LoadProblem(path, "a binary file, not a CmdStan CSV"))
-        return None
-    text = raw.decode("utf-8", errors="replace")
-    del raw
-    if text.startswith(_BOM):
-        text = text[1:]
+    if raw.bom:
         problems.append(LoadProblem(
             path, "the file starts with a byte-order mark (an editor added it); read without it",
             line=1, kind="note"))
-    lines = text.splitlines()
-    del text
-    header = _parse_header_lines(path, lines)
+    header = _parse_header_lines(path, raw.lines)
     if header is None:
-        problems.append(
-            LoadProblem(
-                path,
-                "not a CmdStan CSV: no 'stan_version_major' header comment and no "
-                "sampler columns ending in '__'",
-            )
-        )
+        problems.append(LoadProblem(path, _NOT_CMDSTAN))
         return None
     if not header.columns or header.column_line is None:
         problems.append(LoadProblem(path, "the file has a header but no line of column names"))
@@ -478,67 +464,335 @@ def _parse_file(path: Path, problems: list[LoadProblem], gate: Boundary) -> _Cha
         return None
     dupes = [c for c, n in Counter(header.columns).items() if n > 1]
     if dupes:
-        problems.append(
-            LoadProblem(
-                path,
-                f"column names repeat ({', '.join(dupes[:5])}); the file cannot be read "
-                "as one set of draws",
-                line=header.column_line,
-            )
-        )
+        problems.append(LoadProblem(
+            path, f"column names repeat ({', '.join(dupes[:5])}); the file cannot be read "
+            "as one set of draws", line=header.column_line))
         return None
+    return _Head(header, raw.body_offset, raw.size, raw.mtime_ns)
 
-    rows: list[str] = []
-    numbers: list[int] = []
-    step_size = math.nan
-    elapsed: dict[str, float] = {}
-    for number in range(header.column_line + 1, len(lines) + 1):
-        line = lines[number - 1]
-        if not line.strip():
-            continue
-        if line.startswith("#"):
-            m = _STEP_SIZE.match(line)
-            if m:
-                value = _as_float(m.group(1))
-                step_size = math.nan if value is None else value
-            m = _ELAPSED.match(line)
-            if m:
-                seconds = _as_float(m.group(1))
-                if seconds is None:
-                    problems.append(LoadProblem(
-                        path, f"the timing line says {m.group(1)!r} seconds, not a number; "
-                        "the time is left out", line=number, kind="note"))
+
+def _promised_rows(h: CmdStanHeader) -> int | None:
+    """Data rows the header promises (warmup, draws, and the mean row of variational
+    output), or ``None`` when it does not say."""
+    if h.method == "variational":
+        n = _as_int(h.find("output_samples", "variational"))
+        return None if n is None else n + 1
+    if h.method != "sample":
+        return None
+    expected = _kept_and_warmup_expected(h, _is_fixed_param(h))
+    return None if expected is None else sum(expected)
+
+
+class _Comments:
+    """What the comment lines among the rows say: adaptation and timing."""
+
+    def __init__(self, path: Path, problems: list[LoadProblem]) -> None:
+        self.path, self.problems = path, problems
+        self.step_size = math.nan
+        self.metric: str | None = None
+        self.diag: list[float] = []
+        self.elapsed: dict[str, float] = {}
+        self._expect: str | None = None  # "diag" or "dense": values follow
+
+    def line(self, text: str, number: int) -> None:
+        m = _STEP_SIZE.match(text)
+        if m:
+            value = _as_float(m.group(1))
+            self.step_size = math.nan if value is None else value
+            return
+        if _DIAG_METRIC.match(text):
+            self.metric, self._expect, self.diag = "diag", "diag", []
+            return
+        if _DENSE_METRIC.match(text):
+            self.metric, self._expect, self.diag = "dense", "dense", []
+            return
+        if self._expect is not None:
+            body = text.lstrip("#").strip()
+            values = [_as_float(v) for v in body.split(",")] if body else []
+            if not values or any(v is None for v in values):
+                self._expect = None  # the block has ended
+            elif self._expect == "diag":
+                self.diag = [float(v) for v in values]  # type: ignore[arg-type]
+                self._expect = None
+                return
+            else:
+                k = len(self.diag)
+                self.diag.append(float(values[k]) if k < len(values) else math.nan)
+                return
+        m = _ELAPSED.match(text)
+        if m:
+            seconds = _as_float(m.group(1))
+            if seconds is None:
+                self.problems.append(LoadProblem(
+                    self.path, f"the timing line says {m.group(1)!r} seconds, not a number; "
+                    "the time is left out", line=number, kind="note"))
+            else:
+                self.elapsed[m.group(2).lower()] = seconds
+
+
+@dataclass
+class _Region:
+    """A region of data lines handed to a parser."""
+
+    first_line: int  # 1-based line number of its first line
+    first_row: int  # row of the slot its first line goes to
+    n_lines: int
+    last_is_cut: bool  # its last line has no line end (the file ends there)
+    future: Future | None = None
+    result: RegionResult | None = None
+
+
+class _Store:
+    """The shared ``(chain, row, column)`` array, grown when a file has more rows
+    than its header promised.
+
+    With ``scratch`` (a folder outside the project) the array is a shared mapping of a
+    raw float64 file there instead of memory, for runs larger than memory
+    (:mod:`auditor.loaders.cmdstan_lazy`): :meth:`release` hands the pages written so
+    far back to the page cache, so the process holds only what it touched since.
+    """
+
+    def __init__(self, n_chains: int, rows: int, ncol: int, scratch: Path | None = None) -> None:
+        self.scratch = scratch
+        self._maps: list[mmap.mmap] = []
+        self._generation = 0
+        self.arr = self._new((n_chains, max(rows, 1), ncol))
+
+    def _new(self, shape: tuple[int, int, int]) -> np.ndarray:
+        if self.scratch is None:
+            return np.empty(shape)
+        self._generation += 1
+        path = self.scratch / f"rows-{self._generation}.f64"
+        nbytes = max(8, 8 * math.prod(shape))
+        with open(path, "w+b") as fh:
+            # Reserve the blocks now: a full disk is an OSError here, not a fault
+            # (SIGBUS) later when a page of a sparse file is written.
+            os.posix_fallocate(fh.fileno(), 0, nbytes)
+            mm = mmap.mmap(fh.fileno(), nbytes)
+        path.unlink()  # the mapping keeps it until released; nothing is left behind
+        self._maps.append(mm)
+        return np.frombuffer(mm, dtype=np.float64, count=math.prod(shape)).reshape(shape)
+
+    def ensure(self, rows: int, pending: list[_Region]) -> None:
+        if rows <= self.arr.shape[1]:
+            return
+        for r in pending:  # nothing may write into the old array any more
+            _finish(r)
+        new = self._new((self.arr.shape[0], max(rows, 2 * self.arr.shape[1]),
+                         self.arr.shape[2]))
+        new[:, : self.arr.shape[1]] = self.arr
+        self.arr = new
+        self.release()
+
+    def release(self) -> None:
+        """Drop the file-backed pages from this process (they stay in the file)."""
+        for mm in self._maps:
+            mm.madvise(mmap.MADV_DONTNEED)
+
+
+def _finish(region: _Region) -> None:
+    if region.future is not None:
+        region.result = region.future.result()
+        region.future = None
+
+
+def _count_lines(part: bytes) -> int:
+    """Line ends in ``part`` (numpy's count is about twice as fast as ``bytes.count``
+    on a region, and lets the parser threads run meanwhile)."""
+    if len(part) < 65536:
+        return part.count(b"\n")
+    return int(np.count_nonzero(np.frombuffer(part, dtype=np.uint8) == 0x0A))
+
+
+def _next_comment(buf: bytes, pos: int) -> int:
+    """Offset of the first comment line at or after ``pos`` (``len(buf)`` if none).
+
+    Looks for ``#`` alone (a one-byte search is several times faster than looking
+    for ``\n#``) and checks that it starts a line.
+    """
+    while True:
+        k = buf.find(b"#", pos)
+        if k < 0:
+            return len(buf)
+        if buf[k - 1] == 0x0A:  # k > pos here: pos starts a line that is not a comment
+            return k
+        pos = k + 1
+
+
+def _read_rows(chain: _Chain, gate: Boundary, store: _Store, pool: ThreadPoolExecutor | None,
+               workers: int, problems: list[LoadProblem]) -> list[_Region]:
+    """Read the rows of one file into its slot; the regions say what each parser found.
+
+    Comment lines among the rows are read here (adaptation block, timing footer).
+    """
+    h = chain.header
+    path, ncol = h.path, len(h.columns)
+    comments = _Comments(path, problems)
+    regions: list[_Region] = []
+    in_flight: list[_Region] = []
+    line_no = (h.column_line or 0) + 1
+    row = 0
+    since = 0  # bytes read since the file-backed pages were last released
+    with gate.open(path) as fh:
+        fh.seek(chain.head.body_offset)
+        size = CHUNK
+        while True:
+            buf = fh.read(size)
+            if not buf:
+                break
+            n = len(buf)
+            if n == size:  # more may follow: stop at the last complete line, read on from it
+                last = buf.rfind(b"\n") + 1
+                if last == 0:  # one line longer than the chunk: read it whole
+                    fh.seek(-n, os.SEEK_CUR)
+                    size *= 2
+                    continue
+                if last < n:
+                    fh.seek(last - n, os.SEEK_CUR)
+                    buf = buf[:last]
+                    n = last
+                size = CHUNK
+            pos = 0
+            while pos < n:
+                if buf[pos] == 0x23:  # '#': a comment line
+                    end = buf.find(b"\n", pos)
+                    end = n if end < 0 else end
+                    text = buf[pos:end].decode("utf-8", errors="replace").removesuffix("\r")
+                    comments.line(text, line_no)
+                    line_no += 1
+                    pos = end + 1
+                    continue
+                end = _next_comment(buf, pos)
+                part = buf if (pos == 0 and end == n) else buf[pos:end]
+                cut = not part.endswith(b"\n")
+                lines = _count_lines(part) + (1 if cut else 0)
+                store.ensure(row + lines, regions)
+                region = _Region(line_no, row, lines, cut)
+                out = store.arr[chain.slot]
+                if pool is None:
+                    region.result = parse_region(part, lines, ncol, out, row)
                 else:
-                    elapsed[m.group(2).lower()] = seconds
-            continue
-        rows.append(line)
-        numbers.append(number)
-    data, used = _parse_rows(header, rows, numbers, problems)
+                    while sum(r.future is not None and not r.future.done() for r in in_flight) \
+                            >= workers:
+                        _finish(in_flight.pop(0))
+                    region.future = pool.submit(parse_region, part, lines, ncol, out, row)
+                    in_flight.append(region)
+                regions.append(region)
+                line_no += lines
+                row += lines
+                pos = end
+            since += n
+            if store.scratch is not None and since >= RELEASE_BYTES:
+                for r in in_flight:  # their rows must be written before the pages go
+                    _finish(r)
+                in_flight.clear()
+                store.release()
+                since = 0
+        st = os.fstat(fh.fileno())
+    for region in regions:
+        _finish(region)
+    if store.scratch is not None:
+        store.release()
+    chain.step_size = comments.step_size
+    chain.metric = comments.metric
+    chain.inv_metric = np.asarray(comments.diag, dtype=float) if comments.diag else None
+    chain.elapsed = comments.elapsed
+    before = chain.head
+    if st.st_size != before.size or st.st_mtime_ns != before.mtime_ns:
+        chain.grew = (f"it changed while it was read ({before.size:,} bytes when its header "
+                      f"was read, {st.st_size:,} bytes after its rows were)")
+    chain.cut_last_line = bool(regions) and regions[-1].last_is_cut
+    return regions
 
-    fixed_param = _is_fixed_param(header)
-    expected = _kept_and_warmup_expected(header, fixed_param) if header.method == "sample" else None
-    n_warmup = 0
+
+def _settle_rows(chain: _Chain, regions: list[_Region], store: _Store,
+                 problems: list[LoadProblem]) -> None:
+    """Report the lines that could not be used, move the usable rows to the start
+    of the slot, and split warmup from draws."""
+    h = chain.header
+    path, ncol = h.path, len(h.columns)
+    n = sum(r.n_lines for r in regions)
+    used = np.ones(n, dtype=bool)
+    blank = np.zeros(n, dtype=bool)
+    fields = np.full(n, ncol, dtype=np.int64)
+    ragged: list[tuple[int, int]] = []  # (line, fields)
+    odd: list[tuple[int, int, str]] = []
+    n_odd = 0
+    cut: tuple[int, int] | None = None
+    for r in regions:
+        res = r.result
+        assert res is not None
+        span = slice(r.first_row, r.first_row + r.n_lines)
+        if res.good is not None:
+            used[span] = res.good
+            blank[span] = res.blank
+            fields[span] = res.fields
+            for i in np.flatnonzero(~res.good & ~res.blank):
+                if r.last_is_cut and i == r.n_lines - 1:
+                    cut = (r.first_line + int(i), int(res.fields[i]))
+                else:
+                    ragged.append((r.first_line + int(i), int(res.fields[i])))
+        n_odd += res.n_odd
+        odd.extend((r.first_line + i, j, text) for i, j, text in res.odd)
+    chain.n_rows_seen = int((~blank).sum())
+    if ragged and len(ragged) + (cut is not None) == chain.n_rows_seen:
+        seen = sorted({k for _, k in ragged} | ({cut[1]} if cut else set()))
+        problems.append(LoadProblem(
+            path, f"the column line names {ncol} columns but every data row has "
+            f"{' or '.join(str(k) for k in seen)} fields; no draws can be read",
+            line=h.column_line))
+        chain.n_rows = 0
+        return
+    for line, k in ragged[:_MAX_ROW_PROBLEMS]:
+        problems.append(LoadProblem(
+            path, f"row has {k} fields but the header has {ncol} columns; the row is left out",
+            line=line))
+    if len(ragged) > _MAX_ROW_PROBLEMS:
+        problems.append(LoadProblem(
+            path, f"{len(ragged)} rows in all have the wrong number of fields; all left out"))
+    for line, j, text in odd:
+        problems.append(LoadProblem(
+            path, f"field {j + 1} is {text.strip()[:40]!r}, not a number; read as missing (NaN)",
+            line=line))
+    if n_odd > len(odd):
+        problems.append(LoadProblem(
+            path, f"{n_odd} fields in all are not numbers; all read as missing (NaN)"))
+    good_rows = np.flatnonzero(used & ~blank)
+    if cut is not None:
+        problems.append(LoadProblem(
+            path, f"the file ends inside a row: its last line has {cut[1]} of the {ncol} fields "
+            "and no line end, as when a chain is killed or is still being written; that line "
+            f"is left out and the {len(good_rows)} complete rows before it are kept",
+            line=cut[0]))
+    elif chain.cut_last_line and len(good_rows):
+        problems.append(LoadProblem(
+            path, "the last line has no line end; it has every field, but its last value may "
+            "be cut short (a chain killed or still being written?)",
+            line=regions[-1].first_line + regions[-1].n_lines - 1, kind="note"))
+    k = len(good_rows)
+    if k and not np.array_equal(good_rows, np.arange(k)):
+        arr = store.arr[chain.slot]
+        for a in range(0, k, 256):  # sources lie at or after their targets
+            b = min(a + 256, k)
+            arr[a:b] = arr[good_rows[a:b]]
+    chain.n_rows = k
+    expected = _kept_and_warmup_expected(h, _is_fixed_param(h)) if h.method == "sample" else None
     if expected is not None:
         kept, warm = expected
-        if len(rows) != kept + warm:
+        if chain.n_rows_seen != kept + warm:
             what = f"{kept} draws" if not warm else f"{warm} warmup rows and {kept} draws"
-            line = header.lines.get(header.find_key("num_samples", "sample") or "")
-            problems.append(
-                LoadProblem(
-                    path,
-                    f"the header promises {what} (num_samples = "
-                    f"{header.find('num_samples', 'sample')}) but the file has {len(rows)} "
-                    "data rows; the file looks cut short or edited",
-                    line=line,
-                )
-            )
+            line = h.lines.get(h.find_key("num_samples", "sample") or "")
+            problems.append(LoadProblem(
+                path, f"the header promises {what} (num_samples = "
+                f"{h.find('num_samples', 'sample')}) but the file has {chain.n_rows_seen} "
+                "data rows; the file looks cut short or edited", line=line))
         # Warmup rows are the first ``warm`` rows of the file, whichever were unusable.
-        n_warmup = int(used[:warm].sum())
-    elif header.method == "variational" and data.shape[0] > 0:
+        seen = np.flatnonzero(~blank)
+        chain.n_warmup = int(used[seen[:warm]].sum())
+    elif h.method == "variational" and k > 0:
         # The first row of a variational output is the mean of the approximation,
         # not a draw (CmdStan guide, "Variational inference" output; from memory).
-        data = data[1:]
-    return _Chain(header, data, len(rows), n_warmup, step_size, elapsed)
+        chain.start = 1
 
 
 # --------------------------------------------------------------------------- chains
@@ -557,19 +811,10 @@ def _column_difference(odd: tuple[str, ...], ref: tuple[str, ...]) -> str:
     return " and ".join(parts)
 
 
-def _check_chains(chains: list[_Chain], problems: list[LoadProblem]) -> list[_Chain]:
-    """Keep the chains that agree with the majority; report the others."""
-    if len(chains) < 2:
-        return chains
-    n_total = len(chains)
-    checks = (
-        ("columns", lambda c: c.header.columns),
-        ("model", lambda c: c.header.model),
-        ("draws", lambda c: c.n_kept),
-        ("warmup", lambda c: c.n_warmup),
-        ("method", lambda c: c.header.method),
-    )
-    kept = list(chains)
+def _majority(items: list, checks: tuple, n_total: int, problems: list[LoadProblem],
+              header_of) -> list:  # noqa: ANN001 - a key function
+    """Keep the items that agree with the majority on every check; report the others."""
+    kept = list(items)
     for what, key in checks:
         counts = Counter(key(c) for c in kept)
         if len(counts) < 2:
@@ -580,7 +825,7 @@ def _check_chains(chains: list[_Chain], problems: list[LoadProblem]) -> list[_Ch
             value = key(c)
             if value == ref:
                 continue
-            h = c.header
+            h = header_of(c)
             line = None
             if what == "columns":
                 diff = f"it has {_column_difference(value, ref)} compared with the other chains"
@@ -595,59 +840,81 @@ def _check_chains(chains: list[_Chain], problems: list[LoadProblem]) -> list[_Ch
             else:
                 diff = f"its header says method = {value} where the other chains say {ref}"
                 line = h.lines.get("method")
-            problems.append(
-                LoadProblem(
-                    h.path,
-                    f"chain file {h.path.name} does not match the other chains of the run: {diff}; "
-                    f"this chain is left out and the {len(agree)} agreeing chain"
-                    f"{'s are' if len(agree) != 1 else ' is'} kept (of {n_total} files given)",
-                    line=line,
-                    kind="inconsistent-chains",
-                )
-            )
+            problems.append(LoadProblem(
+                h.path, f"chain file {h.path.name} does not match the other chains of the run: "
+                f"{diff}; this chain is left out and the {len(agree)} agreeing chain"
+                f"{'s are' if len(agree) != 1 else ' is'} kept (of {n_total} files given)",
+                line=line, kind="inconsistent-chains"))
         kept = agree
-    kept = _drop_copies(kept, n_total, problems)
-    _note_data_files(kept, problems)
     return kept
 
 
-def _drop_copies(chains: list[_Chain], n_total: int, problems: list[LoadProblem]) -> list[_Chain]:
-    """Leave out a file given twice, or a chain whose draws equal another's.
+def _left_out(h: CmdStanHeader, reason: str, n_total: int) -> LoadProblem:
+    return LoadProblem(h.path, f"chain file {h.path.name}: {reason}; it is left out "
+                       f"(of {n_total} files given)", kind="inconsistent-chains")
 
-    Identical HMC chains mean a copied file or a repeated seed and chain id; kept,
-    they would make the chains look perfectly mixed.
-    """
-    seen_paths: dict[Path, _Chain] = {}
-    seen_draws: dict[bytes, _Chain] = {}
-    out: list[_Chain] = []
-    for c in chains:
-        path = c.header.path.resolve()
-        twin = seen_paths.get(path)
-        reason = None
+
+def _check_heads(heads: list[_Head], n_total: int, problems: list[LoadProblem]) -> list[_Head]:
+    """Before any row is read: a file given twice, and chains whose columns, model
+    or method differ from the majority's, are left out."""
+    seen: dict[Path, _Head] = {}
+    unique = []
+    for head in heads:
+        real = head.header.path.resolve()
+        twin = seen.get(real)
         if twin is not None:
-            reason = f"the same file is given twice (as {twin.header.path} too)"
-        elif not _is_fixed_param(c.header) and c.data.size:
-            # A digest, not the bytes: a copy of every chain would double the memory.
-            key = hashlib.blake2b(np.ascontiguousarray(c.data).data, digest_size=32).digest()
-            twin = seen_draws.get(key)
-            if twin is not None:
-                reason = (
-                    f"its draws are identical to those of {twin.header.path.name} "
-                    "(a copied file, or the same seed and chain id)"
-                )
-            seen_draws.setdefault(key, c)
-        seen_paths.setdefault(path, c)
-        if reason is None:
-            out.append(c)
+            problems.append(_left_out(
+                head.header, f"the same file is given twice (as {twin.header.path} too)",
+                n_total))
             continue
-        problems.append(
-            LoadProblem(
-                c.header.path,
-                f"chain file {c.header.path.name}: {reason}; it is left out "
-                f"(of {n_total} files given)",
-                kind="inconsistent-chains",
-            )
-        )
+        seen[real] = head
+        unique.append(head)
+    if len(unique) < 2:
+        return unique
+    checks = (
+        ("columns", lambda c: c.header.columns),
+        ("model", lambda c: c.header.model),
+        ("method", lambda c: c.header.method),
+    )
+    return _majority(unique, checks, n_total, problems, lambda c: c.header)
+
+
+def _fingerprint(chain: _Chain, arr: np.ndarray) -> bytes:
+    """A digest of a chain's first, middle and last rows (cheap; equal draws give
+    equal digests, and a match is confirmed on all rows)."""
+    rows = arr[chain.slot, : chain.n_rows]
+    picks = sorted({0, chain.n_rows // 2, chain.n_rows - 1})
+    digest = hashlib.blake2b(digest_size=16)
+    digest.update(str(chain.n_rows).encode())
+    for i in picks:
+        digest.update(np.ascontiguousarray(rows[i]).data)
+    return digest.digest()
+
+
+def _check_chains(chains: list[_Chain], n_total: int, arr: np.ndarray,
+                  problems: list[LoadProblem]) -> list[_Chain]:
+    """After the rows are read: chains with another number of draws or warmup rows,
+    and chains whose draws equal another's, are left out."""
+    if len(chains) < 2:
+        return chains
+    checks = (("draws", lambda c: c.n_kept), ("warmup", lambda c: c.n_warmup))
+    kept = _majority(chains, checks, n_total, problems, lambda c: c.header)
+    out: list[_Chain] = []
+    seen: dict[bytes, list[_Chain]] = {}
+    for c in kept:
+        if not _is_fixed_param(c.header) and c.n_rows:
+            # Identical HMC chains mean a copied file or a repeated seed and chain id;
+            # kept, they would make the chains look perfectly mixed.
+            key = _fingerprint(c, arr)
+            twin = next((t for t in seen.get(key, []) if np.array_equal(
+                arr[t.slot, : t.n_rows], arr[c.slot, : c.n_rows])), None)
+            if twin is not None:
+                problems.append(_left_out(
+                    c.header, f"its draws are identical to those of {twin.header.path.name} "
+                    "(a copied file, or the same seed and chain id)", n_total))
+                continue
+            seen.setdefault(key, []).append(c)
+        out.append(c)
     return out
 
 
@@ -662,153 +929,82 @@ def _note_data_files(chains: list[_Chain], problems: list[LoadProblem]) -> None:
         other = data_file(c)
         if first and other and other != first:
             h = c.header
-            problems.append(
-                LoadProblem(
-                    h.path,
-                    f"this chain read data file {other} but {chains[0].header.path.name} read "
-                    f"{first}; if the contents differ, the chains sample different posteriors",
-                    line=h.lines.get("data.file") or h.lines.get("data"),
-                    kind="note",
-                )
-            )
+            problems.append(LoadProblem(
+                h.path, f"this chain read data file {other} but {chains[0].header.path.name} "
+                f"read {first}; if the contents differ, the chains sample different posteriors",
+                line=h.lines.get("data.file") or h.lines.get("data"), kind="note"))
+
+
+def _note_settings(chains: list[_Chain], problems: list[LoadProblem]) -> None:
+    """Header settings in which a chain differs from the other chains of the run.
+
+    Tuning settings (adapt delta, max depth, metric, ...) should be the same in
+    every chain. Seeds differ whenever chains were run as separate processes,
+    which is common and harmless; a chain is noted when the other chains share
+    one seed (one run of the sampler) and it has another (it comes from another
+    run).
+    """
+    if len(chains) < 2:
+        return
+    for within, leaf, label in _COMPARED:
+        values = [c.header.find(leaf, within) for c in chains]
+        present = [v for v in values if v is not None]
+        if len(present) < 2:
+            continue
+        ref = Counter(present).most_common(1)[0][0]
+        ref_chain = next(c for c, v in zip(chains, values, strict=True) if v == ref)
+        for c, value in zip(chains, values, strict=True):
+            if value is None or _same_setting(value, ref):
+                continue
+            problems.append(LoadProblem(
+                c.header.path, f"this chain ran with {label} = {value} but "
+                f"{ref_chain.header.path.name} with {label} = {ref}: the chains of one run "
+                "were run with different settings",
+                line=c.header.lines.get(c.header.find_key(leaf, within) or ""), kind="note"))
+    seeds = [c.header.find("seed", "random") for c in chains]
+    counts = Counter(s for s in seeds if s is not None)
+    if not counts:
+        return
+    shared, k = counts.most_common(1)[0]
+    if k < 2:
+        return
+    for c, seed in zip(chains, seeds, strict=True):
+        if seed is not None and seed != shared:
+            problems.append(LoadProblem(
+                c.header.path, f"this chain was started with seed {seed} while {k} other chains "
+                f"share seed {shared} (one run of the sampler): it comes from another run, which "
+                "is fine only if that run used the same program, data and settings", kind="note",
+                line=c.header.lines.get(c.header.find_key("seed", "random") or "")))
+
+
+def _same_setting(a: str, b: str) -> bool:
+    if a == b:
+        return True
+    fa, fb = _as_float(a), _as_float(b)
+    if fa is not None and fb is not None:
+        return fa == fb
+    ba, bb = _as_bool(a), _as_bool(b)
+    return ba is not None and ba == bb
+
+
+def _note_unfinished(chains: list[_Chain], problems: list[LoadProblem]) -> None:
+    """Chains still being written, or whose run was killed: the file changed while
+    it was read, or the timing footer is missing while other chains have one."""
+    footers = [bool(c.elapsed) for c in chains]
+    for c, has_footer in zip(chains, footers, strict=True):
+        path = c.header.path
+        if c.grew:
+            problems.append(LoadProblem(
+                path, f"{c.header.path.name}: {c.grew}; the chain is still being written: "
+                f"{c.n_rows} rows were read so far; audit again when the run has ended"))
+        elif not has_footer and any(footers) and c.header.method == "sample":
+            problems.append(LoadProblem(
+                path, f"the file ends without the timing footer ('Elapsed Time') that the "
+                "other chains have: the chain was still being written or its run was killed "
+                f"({c.n_rows} complete rows were read)"))
 
 
 # --------------------------------------------------------------------------- datasets
-
-
-#: Longest index we read as an index (CmdStan writes sizes that fit in an int).
-_MAX_INDEX_DIGITS = 10
-#: An array may have at most this many elements per column that names one of
-#: them; beyond it the declared shape is absurd (one column ``theta.4294967296``
-#: would otherwise ask for an array of 4 billion elements per draw).
-_MAX_FILL = 4
-
-
-def _split_column(name: str) -> tuple[str, tuple[int, ...]]:
-    """``eta.2.1`` -> ("eta", (2, 1)); names that are not ``base.i.j`` -> (name, ())."""
-    parts = name.split(".")
-    if len(parts) > 1 and parts[0] and all(
-        p.isdigit() and p.isascii() and len(p) <= _MAX_INDEX_DIGITS for p in parts[1:]
-    ):
-        return parts[0], tuple(int(p) for p in parts[1:])
-    return name, ()
-
-
-@dataclass
-class _Array:
-    """The columns of one array variable: positions in the file and the array's shape."""
-
-    columns: list[int]
-    flat: list[int]  # cell of each column in the C-order flattened array
-    shape: tuple[int, ...]
-
-
-def _layout(
-    columns: Sequence[str], path: Path, line: int | None, problems: list[LoadProblem]
-) -> dict[str, _Array | int]:
-    """How the model columns form variables: a column number for a scalar, an
-    :class:`_Array` for ``name.i.j`` columns.
-
-    The declared shape is checked before anything is allocated: CmdStan writes
-    every element of an array, so the indices of one name must fill their shape
-    exactly, starting at 1. Names whose indices do not (index 0, gaps, a huge
-    index, mixed numbers of indices) are reported and kept as separate columns
-    under their own names.
-    """
-    groups: dict[str, list[tuple[int, tuple[int, ...]]]] = {}
-    for j, col in enumerate(columns):
-        base, idx = _split_column(col)
-        groups.setdefault(base, []).append((j, idx))
-    out: dict[str, _Array | int] = {}
-    for base, members in groups.items():
-        ndims = {len(idx) for _, idx in members}
-        if ndims == {0} and len(members) == 1:
-            out[base] = members[0][0]
-            continue
-        why = None
-        if len(ndims) != 1 or 0 in ndims:
-            why = "some columns have a different number of indices"
-        else:
-            idx = [i for _, i in members]
-            shape = tuple(max(i[k] for i in idx) for k in range(len(idx[0])))
-            cells = math.prod(shape)
-            size = "x".join(map(str, shape))
-            if any(min(i) < 1 for i in idx):
-                why = "an index is 0, but CmdStan numbers elements from 1"
-            elif len(set(idx)) != len(idx):
-                why = "an index appears twice"
-            elif cells > _MAX_FILL * len(members):
-                why = (f"the indices span a {size} array ({cells:,} elements) but there are "
-                       f"only {len(members):,} columns")
-            elif cells != len(members):
-                # A few elements missing (a hand-edited file): keep the array, with
-                # the missing elements read as NaN, and say so.
-                problems.append(LoadProblem(
-                    path, f"columns {base}.* give {len(members):,} of the {cells:,} elements "
-                    f"of a {size} array; the missing elements are read as NaN", line=line))
-        if why is not None:
-            problems.append(LoadProblem(
-                path, f"columns {base}.*: {why}; they are kept as separate quantities named as "
-                "in the file", line=line))
-            for j, _ in members:
-                out[columns[j]] = j
-            continue
-        # Indices are 1-based in the file; the column-major order CmdStan writes
-        # lands in the right cells of a C-order array.
-        flat = [int(np.ravel_multi_index(tuple(v - 1 for v in i), shape)) for i in idx]
-        out[base] = _Array([j for j, _ in members], flat, shape)
-    return _safe_names(out, path, line, problems)
-
-
-def _safe_names(
-    layout: dict[str, _Array | int], path: Path, line: int | None, problems: list[LoadProblem]
-) -> dict[str, _Array | int]:
-    """Rename variables whose names the normalized tree cannot hold.
-
-    ``chain`` and ``draw`` are the draws' own dimensions and ``<name>_dim_<k>``
-    the dimensions of arrays; a ``/`` would be read as a group path. Stan allows
-    the first two as identifiers, so a real program can use them.
-    """
-    taken = set(layout)
-    reserved = {"chain", "draw"} | {
-        f"{name}_dim_{k}" for name, spec in layout.items()
-        if isinstance(spec, _Array) for k in range(len(spec.shape))}
-    out: dict[str, _Array | int] = {}
-    for name, spec in layout.items():
-        new = name.replace("/", "_")
-        while new in reserved or (new != name and new in taken):
-            new += "_"
-        if new != name:
-            problems.append(LoadProblem(
-                path, f"the quantity named {name!r} is shown as {new!r}: its name is one the "
-                "draws' dimensions use, or holds a '/'", line=line, kind="note"))
-            taken.add(new)
-        out[new] = spec
-    return out
-
-
-def _variables(
-    layout: dict[str, _Array | int], values: np.ndarray, chain_dim: int = 2
-) -> dict[str, xr.Variable]:
-    """Arrays of shape (chain, draw, ...) for each variable of ``layout``.
-
-    ``values`` has shape (chain, draw, column).
-    """
-    out: dict[str, xr.Variable] = {}
-    lead = values.shape[:chain_dim]
-    for name, spec in layout.items():
-        if isinstance(spec, int):
-            out[name] = xr.Variable(("chain", "draw"), values[..., spec])
-            continue
-        cells = math.prod(spec.shape)
-        if cells == len(spec.columns):
-            arr = np.empty((*lead, cells), dtype=values.dtype)
-        else:  # missing elements (reported by _layout) stay NaN
-            arr = np.full((*lead, cells), np.nan, dtype=values.dtype)
-        arr[..., spec.flat] = values[..., spec.columns]
-        dims = ("chain", "draw", *(f"{name}_dim_{k}" for k in range(len(spec.shape))))
-        out[name] = xr.Variable(dims, arr.reshape(*lead, *spec.shape))
-    return out
 
 
 def _integral(values: np.ndarray) -> np.ndarray:
@@ -818,10 +1014,11 @@ def _integral(values: np.ndarray) -> np.ndarray:
     return values
 
 
-def _stats_dataset(columns: Sequence[str], values: np.ndarray, max_depth: int | None) -> xr.Dataset:
+def _stats_dataset(columns: Sequence[tuple[int, str]], values: np.ndarray,
+                   max_depth: int | None) -> xr.Dataset:
     """sample_stats from the ``*__`` columns, with standard names."""
     data = {}
-    for j, col in enumerate(columns):
+    for j, col in columns:
         name = CMDSTAN.get(col, col[:-2] if col.endswith("__") else col)
         v = values[..., j]
         if name in ("tree_depth", "n_steps"):
@@ -831,30 +1028,24 @@ def _stats_dataset(columns: Sequence[str], values: np.ndarray, max_depth: int | 
     return normalize_sample_stats(ds, max_depth=max_depth)
 
 
-def _coords(n_chains: int, n_draws: int, variables: dict[str, xr.Variable]) -> dict:
-    coords = {"chain": np.arange(n_chains), "draw": np.arange(n_draws)}
-    for var in variables.values():
-        for dim, size in zip(var.dims[2:], var.shape[2:], strict=True):
-            coords.setdefault(dim, np.arange(size))
-    return coords
-
-
-def _group_datasets(
-    chains: list[_Chain], warmup: bool, max_depth: int | None, layout: dict[str, _Array | int]
-) -> tuple[xr.Dataset, xr.Dataset | None]:
-    columns = chains[0].header.columns
-    if warmup:
-        stacked = np.stack([c.data[: c.n_warmup] for c in chains])
-    else:
-        stacked = np.stack([c.data[c.n_warmup :] for c in chains])
-    n_chains, n_draws = stacked.shape[:2]
-    stat_cols = [j for j, c in enumerate(columns) if c.endswith("__")]
-    model_cols = [j for j, c in enumerate(columns) if not c.endswith("__")]
-    variables = _variables(layout, stacked[..., model_cols])
-    posterior = xr.Dataset(variables, coords=_coords(n_chains, n_draws, variables))
+def _group_datasets(values: np.ndarray, columns: Sequence[str], max_depth: int | None,
+                    layout: stan_names.Layout) -> tuple[xr.Dataset, xr.Dataset | None]:
+    """posterior and sample_stats of ``values`` (chain, draw, column); variables are
+    views of ``values`` where the layout allows."""
+    n_chains, n_draws = values.shape[:2]
+    variables: dict[str, xr.Variable] = {}
+    coords: dict[str, object] = {"chain": np.arange(n_chains), "draw": np.arange(n_draws)}
+    for name, spec in layout.items():
+        arr = stan_names.extract(values, spec)
+        dims = ("chain", "draw") if isinstance(spec, int) else ("chain", "draw", *spec.dims(name))
+        variables[name] = xr.Variable(dims, arr)
+        for dim, coord in stan_names.coords_for(name, spec).items():
+            coords.setdefault(dim, coord)
+    posterior = xr.Dataset(variables, coords=coords)
+    stat_cols = [(j, c) for j, c in enumerate(columns) if c.endswith("__")]
     stats = None
     if stat_cols:
-        stats = _stats_dataset([columns[j] for j in stat_cols], stacked[..., stat_cols], max_depth)
+        stats = _stats_dataset(stat_cols, values, max_depth)
         stats = stats.assign_coords(chain=np.arange(n_chains), draw=np.arange(n_draws))
     return posterior, stats
 
@@ -875,6 +1066,11 @@ def _settings(chains: list[_Chain]) -> SamplerSettings:
     )
     informative = all(i is not None for i in ids) and len(set(ids)) == len(ids) and not by_default
     seeds = [_as_int(c.header.find("seed", "random")) for c in chains]
+    metrics = {c.metric for c in chains if c.metric}
+    timing = {
+        phase: [c.elapsed.get(phase, math.nan) for c in chains]
+        for phase in ("warm-up", "sampling")
+    }
     return SamplerSettings(
         library="CmdStan",
         library_version=h.version,
@@ -892,7 +1088,69 @@ def _settings(chains: list[_Chain]) -> SamplerSettings:
         chain_ids=[int(i) for i in ids] if informative else list(range(1, len(chains) + 1)),
         seeds=[s for s in seeds if s is not None] if all(s is not None for s in seeds) else [],
         model_name=h.model,
+        adapted_step_size=[] if all(math.isnan(c.step_size) for c in chains)
+        else [float(c.step_size) for c in chains],
+        inverse_metric=metrics.pop() if len(metrics) == 1 else None,
+        inverse_metric_diagonal=[
+            [float(v) for v in c.inv_metric] if c.inv_metric is not None else []
+            for c in chains] if any(c.inv_metric is not None for c in chains) else [],
+        warmup_seconds=[] if all(math.isnan(v) for v in timing["warm-up"])
+        else timing["warm-up"],
+        sampling_seconds=[] if all(math.isnan(v) for v in timing["sampling"])
+        else timing["sampling"],
     )
+
+
+def _workers(total_bytes: int) -> int:
+    """Parser threads: the usable CPUs, at most 4 (each holds a region in flight,
+    about 15 times :data:`CHUNK` at its peak), and one for files of a few regions,
+    where threads cost more than they save."""
+    try:
+        cpus = len(os.sched_getaffinity(0))
+    except (AttributeError, OSError):
+        cpus = os.cpu_count() or 1
+    return max(1, min(cpus, 4, total_bytes // (8 * CHUNK)))
+
+
+@dataclass
+class Run:
+    """A run whose rows were read and checked, before its groups are made.
+
+    ``arr[:len(chains)]`` holds the kept chains in order; rows ``start`` to
+    ``start + warm`` are warmup, the next ``kept`` rows draws.
+    """
+
+    arr: np.ndarray
+    chains: list[_Chain]
+    columns: tuple[str, ...]
+    settings: SamplerSettings
+    layout: stan_names.Layout
+    warm: int
+    start: int
+    kept: int
+    problems: list[LoadProblem]
+    store: _Store
+
+    @property
+    def attrs(self) -> dict[str, str]:
+        attrs = {"inference_library": "CmdStan", "source_format": "cmdstan-csv"}
+        if self.settings.library_version:
+            attrs["inference_library_version"] = self.settings.library_version
+        return attrs
+
+    def rows(self, warmup: bool) -> np.ndarray:
+        """``(chain, draw, column)`` values of the warmup rows or of the draws."""
+        n = len(self.chains)
+        lo = self.start if warmup else self.start + self.warm
+        hi = self.start + self.warm if warmup else lo + self.kept
+        return self.arr[:n, lo:hi]
+
+
+GroupMaker = Callable[[Run, bool], tuple[xr.Dataset, "xr.Dataset | None"]]
+
+
+def _in_memory(run: Run, warmup: bool) -> tuple[xr.Dataset, xr.Dataset | None]:
+    return _group_datasets(run.rows(warmup), run.columns, run.settings.max_depth, run.layout)
 
 
 def load_cmdstan_csv(paths: Sequence[Path], gate: Boundary | None = None) -> Loaded:
@@ -911,49 +1169,101 @@ def load_cmdstan_csv(paths: Sequence[Path], gate: Boundary | None = None) -> Loa
     Loaded
         ``posterior`` (model columns), ``sample_stats`` (``*__`` columns under
         standard names), and with saved warmup ``warmup_posterior`` and
-        ``warmup_sample_stats``. The adapted step size and the elapsed times per
-        chain are kept in the posterior group's attrs (``adapted_step_size``,
+        ``warmup_sample_stats``. The adaptation block (step size, inverse
+        metric) and the timing footer go into the settings; the step size and
+        times are also kept in the posterior group's attrs (``adapted_step_size``,
         ``elapsed_warmup_seconds``, ``elapsed_sampling_seconds``). Chains that
         disagree with the majority are left out with an ``inconsistent-chains``
         problem.
     """
+    run = read_run(paths, gate)
+    if isinstance(run, Loaded):
+        return run
+    return run_groups(run, _in_memory)
+
+
+def read_run(paths: Sequence[Path], gate: Boundary | None = None,
+             scratch: Path | None = None) -> Run | Loaded:
+    """Read and check the rows of a run (everything but making its groups).
+
+    With ``scratch``, the rows go to a file-backed array in that folder (see
+    :class:`_Store`). Returns a :class:`Loaded` without a tree when nothing can be read.
+    """
     problems: list[LoadProblem] = []
-    parsed: list[_Chain] = []
     gate = gate or Boundary.unconfined()
+    heads: list[_Head] = []
     for p in paths:
-        chain = _parse_file(Path(p), problems, gate)
-        if chain is not None:
-            parsed.append(chain)
-    chains = _check_chains(parsed, problems)
+        head = _open_head(Path(p), problems, gate)
+        if head is not None:
+            heads.append(head)
+    n_total = len(heads)
+    heads = _check_heads(heads, n_total, problems)
+    if not heads:
+        return Loaded(tree=None, settings=SamplerSettings(library="CmdStan"), problems=problems)
+    columns = heads[0].header.columns
+    ncol = len(columns)
+    promised = [_promised_rows(hd.header) for hd in heads]
+    # A file cannot hold more rows than its size allows (every field takes a
+    # character and a separator), so a header promising a billion draws in a
+    # small file costs nothing.
+    fits = max(hd.size // (2 * ncol) + 1 for hd in heads)
+    rows = min(max((p for p in promised if p is not None), default=1024), fits)
+    store = _Store(len(heads), rows, ncol, scratch)
+    chains = [_Chain(hd, slot) for slot, hd in enumerate(heads)]
+    workers = _workers(sum(hd.size for hd in heads))
+    read: list[_Chain] = []
+    with ThreadPoolExecutor(workers) if workers > 1 else _NoPool() as pool:
+        for c in chains:
+            try:
+                regions = _read_rows(c, gate, store, pool, workers, problems)
+            except Refused as exc:
+                problems.append(refused_problem(c.header.path, exc))
+                continue
+            except OSError as exc:
+                problems.append(LoadProblem(c.header.path,
+                                            f"cannot read the file: {exc.strerror or exc}"))
+                continue
+            _settle_rows(c, regions, store, problems)
+            read.append(c)
+    chains = read
+    _note_unfinished(chains, problems)
+    chains = _check_chains(chains, n_total, store.arr, problems)
     if not chains:
         return Loaded(tree=None, settings=SamplerSettings(library="CmdStan"), problems=problems)
+    _note_data_files(chains, problems)
+    _note_settings(chains, problems)
     settings = _settings(chains)
     h = chains[0].header
     if settings.algorithm == "fixed_param" and h.find("algorithm", "sample") == "hmc":
-        problems.append(
-            LoadProblem(
-                h.path,
-                "the header says algorithm = hmc but there are no HMC sampler columns "
-                "(stepsize__, treedepth__): read as a fixed_param run, as CmdStan does for "
-                "models without parameters",
-                line=h.lines.get(h.find_key("algorithm", "sample") or ""),
-                kind="note",
-            )
-        )
-    if all(c.data.shape[0] == 0 for c in chains):
+        problems.append(LoadProblem(
+            h.path, "the header says algorithm = hmc but there are no HMC sampler columns "
+            "(stepsize__, treedepth__): read as a fixed_param run, as CmdStan does for "
+            "models without parameters",
+            line=h.lines.get(h.find_key("algorithm", "sample") or ""), kind="note"))
+    if all(c.n_rows == 0 for c in chains):
         for c in chains:
             if c.n_rows_seen == 0:
                 problems.append(LoadProblem(c.header.path, "the file has no draws (no data rows)"))
         return Loaded(tree=None, settings=settings, problems=problems)
-    model_columns = [c for c in h.columns if not c.endswith("__")]
-    layout = _layout(model_columns, h.path, h.column_line, problems)
-    posterior, stats = _group_datasets(chains, False, settings.max_depth, layout)
-    attrs = {
-        "inference_library": "CmdStan",
-        "source_format": "cmdstan-csv",
-    }
-    if settings.library_version:
-        attrs["inference_library_version"] = settings.library_version
+    arr = store.arr
+    for k, c in enumerate(chains):  # chains left out free their slots; later ones move down
+        if c.slot != k:
+            arr[k] = arr[c.slot]
+            c.slot = k
+    if scratch is not None:
+        store.release()
+    first = chains[0]
+    layout = stan_names.layout([(j, c) for j, c in enumerate(columns) if not c.endswith("__")],
+                               h.path, h.column_line, problems)
+    return Run(arr=arr, chains=chains, columns=columns, settings=settings, layout=layout,
+               warm=first.n_warmup, start=first.start, kept=first.n_kept, problems=problems,
+               store=store)
+
+
+def run_groups(run: Run, make: GroupMaker) -> Loaded:
+    """The tree of a read run, its groups made by ``make(run, warmup)``."""
+    chains, attrs = run.chains, run.attrs
+    posterior, stats = make(run, False)
     posterior.attrs.update(attrs)
     posterior.attrs["adapted_step_size"] = [float(c.step_size) for c in chains]
     for phase in ("warm-up", "sampling"):
@@ -965,8 +1275,8 @@ def load_cmdstan_csv(paths: Sequence[Path], gate: Boundary | None = None) -> Loa
     if stats is not None:
         stats.attrs.update(attrs)
         groups["sample_stats"] = stats
-    if any(c.n_warmup for c in chains):
-        w_post, w_stats = _group_datasets(chains, True, settings.max_depth, layout)
+    if run.warm:
+        w_post, w_stats = make(run, True)
         w_post.attrs.update(attrs)
         groups["warmup_posterior"] = w_post
         if w_stats is not None:
@@ -974,9 +1284,15 @@ def load_cmdstan_csv(paths: Sequence[Path], gate: Boundary | None = None) -> Loa
             groups["warmup_sample_stats"] = w_stats
     tree = xr.DataTree.from_dict(groups)
     tree.attrs.update(attrs)
-    return Loaded(
-        tree=tree,
-        settings=settings,
-        sources=[c.header.path for c in chains],
-        problems=problems,
-    )
+    return Loaded(tree=tree, settings=run.settings, sources=[c.header.path for c in chains],
+                  problems=run.problems)
+
+
+class _NoPool:
+    """Stands in for a thread pool on one CPU: regions are parsed in the caller."""
+
+    def __enter__(self) -> None:
+        return None
+
+    def __exit__(self, *exc: object) -> None:
+        return None

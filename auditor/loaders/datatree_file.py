@@ -8,6 +8,7 @@ file open. Every group is kept; sampler statistics get the standard names of
 from __future__ import annotations
 
 import importlib.util
+import json
 import warnings
 from pathlib import Path
 from typing import Any
@@ -154,6 +155,41 @@ def _as_int(value: Any) -> int | None:
         return None
 
 
+def _as_float(value: Any) -> float | None:
+    try:
+        f = float(value)
+    except (TypeError, ValueError):
+        return None
+    return f if np.isfinite(f) else None
+
+
+#: Longest settings text read as JSON (nutpie writes about 2 kB).
+_MAX_SETTINGS_CHARS = 1_000_000
+
+
+def _nutpie_settings(text: Any) -> dict[str, Any]:
+    """The flat settings nutpie stores as JSON in ``inference_library_settings``:
+    the top level merged with its ``settings`` and ``adapt_options`` parts."""
+    if isinstance(text, bytes):
+        text = text.decode("utf-8", errors="replace")
+    if not isinstance(text, str) or len(text) > _MAX_SETTINGS_CHARS:
+        return {}
+    try:
+        data = json.loads(text)
+    except (ValueError, RecursionError):
+        return {}
+    if not isinstance(data, dict):
+        return {}
+    flat: dict[str, Any] = {}
+    inner = data.get("settings")
+    inner = inner if isinstance(inner, dict) else {}
+    step = inner.get("adapt_options", {})
+    step = step.get("step_size_settings", {}) if isinstance(step, dict) else {}
+    for part in (step if isinstance(step, dict) else {}, inner, data):
+        flat.update({k: v for k, v in part.items() if not isinstance(v, dict | list)})
+    return flat
+
+
 def _draws_ok(name: str, ds: xr.Dataset, path: Path, problems: list[LoadProblem]) -> xr.Dataset:
     """Put chain and draw first; report a draws group without them."""
     if not ds.data_vars:
@@ -229,6 +265,17 @@ def _settings(tree: xr.DataTree, raw_stats: set[str]) -> SamplerSettings:
         if np.issubdtype(values.dtype, np.integer):
             seeds = [int(v) for v in values]
     model_name = _attr(tree, "model_name")
+    adapt_delta = None
+    nutpie = _nutpie_settings(_attr(tree, "inference_library_settings"))
+    if nutpie:
+        # nutpie records its settings as JSON (examples/demo/fits/harvest_informed.nc,
+        # written by nutpie 0.16: "maxdepth", "target_accept", "seed", "num_tune").
+        max_depth = max_depth if max_depth is not None else _as_int(nutpie.get("maxdepth"))
+        adapt_delta = _as_float(nutpie.get("target_accept"))
+        if not seeds and _as_int(nutpie.get("seed")) is not None:
+            seeds = [_as_int(nutpie.get("seed"))]  # type: ignore[list-item]
+        if num_warmup is None:
+            num_warmup = _as_int(nutpie.get("num_tune"))
     return SamplerSettings(
         library=library,
         library_version=None if version is None else str(version),
@@ -239,6 +286,7 @@ def _settings(tree: xr.DataTree, raw_stats: set[str]) -> SamplerSettings:
         num_warmup=num_warmup,
         save_warmup=save_warmup,
         max_depth=max_depth,
+        adapt_delta=adapt_delta,
         chain_ids=chains,
         seeds=seeds,
         model_name=None if model_name is None else str(model_name),

@@ -1,4 +1,4 @@
-"""Stan data files: JSON and R dump.
+"""Data files: Stan JSON, R dump, and data tables (CSV or Parquet).
 
 Formats (CmdStan guide, "JSON format for CmdStan" and "RDump format for CmdStan";
 common practice):
@@ -11,7 +11,12 @@ common practice):
   ``structure(c(...), .Dim = c(...))`` for arrays, whose values are listed in
   column-major (R) order.
 
-Nothing is evaluated: both formats are parsed as text.
+- Data tables (CSV with a header line, or Parquet): one column per variable, one
+  row per observation; each column becomes a vector (whole numbers stay
+  integers, text columns stay text). The analysis's ``observed`` names the
+  column that holds the outcome.
+
+Nothing is evaluated: the formats are parsed as text (tables by polars).
 """
 
 from __future__ import annotations
@@ -63,6 +68,8 @@ def read_stan_data(
     """
     path = Path(path)
     gate = gate or Boundary.unconfined()
+    if path.suffix.lower() in (".csv", ".parquet"):
+        return read_data_table(path, gate)
     try:
         text = gate.read_text(path, errors="replace")
     except Refused as exc:
@@ -432,4 +439,64 @@ def _read_rdump(path: Path, text: str) -> tuple[dict[str, Value], list[LoadProbl
                             start.line, kind="note")
             )
         values[name] = value
+    return values, problems
+
+
+# --------------------------------------------------------------------------- tables
+
+
+def read_data_table(
+    path: Path, gate: Boundary | None = None
+) -> tuple[dict[str, Value], list[LoadProblem]]:
+    """Columns of a data table (CSV or Parquet) as variables.
+
+    ``NA`` and empty fields are missing values: a numeric column with missing
+    values becomes float with NaN, and is reported.
+    """
+    import io
+
+    import polars as pl
+
+    path = Path(path)
+    gate = gate or Boundary.unconfined()
+    try:
+        data = gate.read_bytes(path)
+    except Refused as exc:
+        return {}, [refused_problem(path, exc)]
+    except OSError as exc:
+        return {}, [LoadProblem(path, f"cannot read the data file: {exc.strerror or exc}")]
+    if not data.strip():
+        return {}, [LoadProblem(path, "an empty data file")]
+    try:
+        if path.suffix.lower() == ".parquet":
+            df = pl.read_parquet(io.BytesIO(data))
+        else:
+            if b"\x00" in data[:4096]:
+                return {}, [LoadProblem(path, "a binary file, not a CSV data table")]
+            df = pl.read_csv(data, null_values=["NA"], infer_schema_length=None,
+                             encoding="utf8-lossy")
+    except Exception as exc:  # noqa: BLE001 - readers raise many types; report, never crash
+        line = None
+        m = re.search(r"line (\d+)", str(exc))
+        if m:
+            line = int(m.group(1))
+        return {}, [LoadProblem(path, f"not a readable data table: {type(exc).__name__}: "
+                                f"{str(exc).splitlines()[0][:200]}", line)]
+    values: dict[str, Value] = {}
+    problems: list[LoadProblem] = []
+    for name in df.columns:
+        col = df[name]
+        missing = col.null_count()
+        if col.dtype == pl.Boolean:
+            col = col.cast(pl.Int64)
+        if col.dtype.is_integer() and not missing:
+            values[name] = col.to_numpy().astype(np.int64)
+        elif col.dtype.is_numeric():
+            values[name] = col.cast(pl.Float64).fill_null(float("nan")).to_numpy()
+        else:
+            values[name] = np.asarray(col.cast(pl.String).to_list(), dtype=object)
+        if missing:
+            problems.append(LoadProblem(
+                path, f"column {name!r} has {missing} missing values (NA or empty); read as NaN",
+                kind="note"))
     return values, problems

@@ -15,6 +15,12 @@ Sources of the sampler-side names:
   ``step_size``, ``acceptance_rate``, ``n_steps``) plus extras; PyMC3 (version 3)
   wrote ``depth``, ``tree_size``, ``mean_tree_accept`` and ``model_logp``
   (PyMC3 "Sampler statistics" notebook; PyMC docs, ``pymc.step_methods.hmc.NUTS``).
+- NumPyro through arviz-base's ``from_numpyro`` (arviz_base/io_numpyro.py,
+  ``sample_stats_to_xarray``): ``lp``, ``step_size``, ``n_steps``,
+  ``acceptance_rate``, ``diverging``, ``tree_depth`` and
+  ``reached_max_tree_depth`` (with an underscore inside "tree_depth"), plus
+  NumPyro's own extra fields under their own names (``energy``; ``mean_accept_prob``
+  is a running mean, not a per-draw rate, so it keeps its name).
 - nutpie: ``depth``, ``maxdepth_reached``, ``logp``, ``mean_tree_accept``,
   ``diverging``, ``energy``, ``step_size``, ``n_steps``, ``index_in_trajectory``
   (nutpie docs, "Understanding Sampler Statistics in Nutpie",
@@ -68,9 +74,14 @@ NUTPIE: Mapping[str, str] = {
     "mean_tree_accept": "acceptance_rate",
 }
 
+#: NumPyro names through arviz-base (the others are already standard).
+NUMPYRO: Mapping[str, str] = {
+    "reached_max_tree_depth": "reached_max_treedepth",
+}
+
 #: All aliases, sampler name -> standard name. The dictionaries above agree where
 #: they overlap (``depth``, ``mean_tree_accept``), so one merged map serves all.
-ALIASES: Mapping[str, str] = {**CMDSTAN, **PYMC3, **NUTPIE}
+ALIASES: Mapping[str, str] = {**CMDSTAN, **PYMC3, **NUTPIE, **NUMPYRO}
 
 #: Statistics that are dropped: PyMC's ``divergences`` is a running count kept
 #: beside the per-draw ``diverging`` flag; counting it would count divergences
@@ -79,6 +90,18 @@ DROPPED: frozenset[str] = frozenset({"divergences"})
 
 #: Statistics that must be boolean.
 BOOLEAN: tuple[str, ...] = ("diverging", "reached_max_treedepth")
+
+
+#: Columns of a draws table (one row per draw) read as sampler statistics: the
+#: standard names, every alias above, and any name ending in ``__`` (CmdStan's
+#: and cmdstanpy's bookkeeping). ``depth`` and ``logp`` are left out: as column
+#: names they are as likely to be a model's own quantities.
+TABLE_STATS: frozenset[str] = frozenset(STANDARD) | (frozenset(ALIASES) - {"depth", "logp"})
+
+
+def is_table_stat(name: str) -> bool:
+    """Whether a draws-table column holds a sampler statistic."""
+    return name in TABLE_STATS or (name.endswith("__") and len(name) > 2)
 
 
 def standard_name(name: str) -> str:

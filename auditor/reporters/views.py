@@ -552,7 +552,9 @@ def comparison_views(result: AuditResult) -> tuple[ComparisonView, ...]:
                 notes.append(f"WAIC {rec['elpd_waic']:.1f}")
             rows.append(ComparisonRowView(
                 analysis=r["analysis"], elpd_loo=f"{r['elpd_loo']:.1f}", se=f"{r['se']:.1f}",
-                elpd_diff=f"{r['elpd_diff']:.1f}", diff_se=f"{r['diff_se']:.1f}",
+                # round first so that -0.04 shows as 0.0, not -0.0
+                elpd_diff=f"{round(r['elpd_diff'], 1) + 0.0:.1f}",
+                diff_se=f"{r['diff_se']:.1f}",
                 p_loo=f"{r['p_loo']:.1f}", weight=f"{r['stacking_weight']:.2f}",
                 chosen=bool(r.get("chosen")), note="; ".join(notes)))
         caveat = ""

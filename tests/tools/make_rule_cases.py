@@ -215,6 +215,21 @@ def main() -> None:
     _predictive_cases(np.random.default_rng(20261203))
     _comparison_cases(np.random.default_rng(20261204))
     _sensitivity_cases(np.random.default_rng(20261205))
+    _nonfinite_cases(np.random.default_rng(20261206))
+
+
+def _nonfinite_cases(rng: np.random.Generator) -> None:
+    """inputs.nonfinite-draws (issue 13): NaN and infinite draws, reported per quantity."""
+    inputs = RULES / "inputs"
+    iid = {"alpha": rng.normal(size=(CHAINS, DRAWS)), "beta": rng.normal(size=(CHAINS, DRAWS, 3))}
+    _case("nonfinite-draws", "good", iid, _healthy_stats(rng), stage_dir=inputs)
+    # beta[2] overflows in 3 draws of chain 2 (written 'inf', '-inf', 'nan' as CmdStan
+    # writes them) and alpha is NaN once in chain 4.
+    bad = {k: v.copy() for k, v in iid.items()}
+    bad["beta"][1, [10, 50, 90], 1] = [np.inf, -np.inf, np.nan]
+    bad["alpha"][3, 7] = np.nan
+    _case("nonfinite-draws", "bad", bad, _healthy_stats(rng),
+          '[[hit]]\nquantity = "beta[2]"\n[[hit]]\nquantity = "alpha"\n', stage_dir=inputs)
 
 
 # --------------------------------------------------------------------------- predictive

@@ -85,7 +85,11 @@ def check(ctx: RuleContext) -> Iterable[Finding]:
         return []
     data = ctx.analysis.data
     declared = {d.name: d for d in prog.declarations.values() if d.block in _DRAWS_BLOCKS}
-    draws_names = [str(n) for n in post.data_vars if not str(n).endswith("__")]
+    # A tuple's slots are variables of their own in the draws (``pair:1``, ``pair:2``;
+    # auditor/loaders/stan_names.py): they belong to the declaration ``pair``.
+    draws_names = sorted({str(n).split(":", 1)[0] for n in post.data_vars
+                          if not str(n).endswith("__")})
+    slots = {str(n).split(":", 1)[0] for n in post.data_vars if ":" in str(n)}
     # A PyMC source may name variables at run time (f-strings, loops), which a reader
     # that never runs it cannot see: an unseen name there is a warning, not proof.
     unseen_severity = ctx.severity
@@ -100,10 +104,13 @@ def check(ctx: RuleContext) -> Iterable[Finding]:
             "transformed parameter or generated quantity: the draws look like they came "
             "from another version of the program.",
             evidence={"variable": name, "problem": "undeclared",
-                      "draws_shape": "x".join(map(str, _shape(post[name]))) or "scalar"},
+                      "draws_shape": "x".join(map(str, _shape(post[name]))) or "scalar"
+                      if name in post.data_vars else "tuple"},
             quantity=name, location=ctx.program_location(None), severity=unseen_severity))
     for decl in declared.values():
         expected = _expected_shape(decl, data)
+        if decl.name in slots:
+            continue  # a tuple: its slots' shapes are not compared
         if decl.name not in post.data_vars:
             empty = expected is not None and math.prod(expected) == 0
             if decl.block == "parameters" and not empty:

@@ -35,7 +35,8 @@ def tests(ctx):
         dist = likelihood_of(ctx, p.observed)
         kind = outcome_kind(y, dist.family if dist else None)
         discrete = kind in (BINARY, COUNT) or bool(np.all(rep == np.round(rep)))
-        log_w, k = psis_log_weights(ll, max(ctx.analysis.n_chains, 1))
+        r_eff = ctx.loo.r_eff if ctx.loo is not None else 1.0
+        log_w, k = psis_log_weights(ll, max(ctx.analysis.n_chains, 1), r_eff)
         # A fixed seed per analysis and variable: the randomized PIT of discrete data,
         # and so the verdict, is the same on every run.
         seed = zlib.crc32(f"{ctx.analysis.name}/{p.observed}".encode())
