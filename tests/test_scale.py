@@ -388,3 +388,38 @@ def test_a_converted_run_holds_no_pages_of_its_rows(own_tempdir):
     for action in cleanup:
         action()
     assert list(own_tempdir.iterdir()) == []
+
+
+def test_no_rule_reads_a_lazily_read_posterior_whole(tmp_path, own_tempdir):
+    """Every task Dask runs while a posterior larger than the blocks is audited lazily returns
+    at most a block: no rule, figure or table reads the variable whole (a rule that did would
+    load all of a posterior larger than memory; issue 15, part 2)."""
+    from dask.callbacks import Callback
+
+    rng = np.random.default_rng(20261202)
+    chains, draws, k = 4, 100, 20_000  # 64 MB of float64, blocks of at most 16 MB
+    theta = rng.standard_normal((chains, draws, k))
+    theta[0, 3, 17] = np.nan  # one nonfinite draw, for the rule that counts them
+    post = xr.Dataset({"theta": (("chain", "draw", "theta_dim_0"), theta)},
+                      coords={"chain": np.arange(chains), "draw": np.arange(draws)})
+    stats = xr.Dataset({"diverging": (("chain", "draw"), np.zeros((chains, draws), bool))})
+    project = tmp_path / "wide"
+    project.mkdir()
+    tree = xr.DataTree.from_dict({"posterior": post.chunk({"theta_dim_0": 1000}),
+                                  "sample_stats": stats})
+    tree.to_zarr(project / "wide.zarr", mode="w")
+    del theta, post, tree
+
+    class Largest(Callback):
+        largest = 0
+
+        def _posttask(self, key, result, dsk, state, id):  # noqa: ANN001, A002
+            Largest.largest = max(Largest.largest, int(getattr(result, "nbytes", 0)))
+
+    with Largest():
+        result = run_audit([project], overrides={"lazy_share": TINY})
+    whole = chains * draws * k * 8
+    assert 0 < Largest.largest <= whole // 3, (Largest.largest, whole)
+    (one,) = result.analyses
+    assert len(one.diagnostics) == k
+    assert any(f.rule_id == "inputs.nonfinite-draws" for f in one.findings)
