@@ -423,3 +423,49 @@ def test_no_rule_reads_a_lazily_read_posterior_whole(tmp_path, own_tempdir):
     (one,) = result.analyses
     assert len(one.diagnostics) == k
     assert any(f.rule_id == "inputs.nonfinite-draws" for f in one.findings)
+
+
+def _reference_runs() -> list[list[Path]]:
+    """Every CmdStan run in ``../shared/reference-data/cmdstan-outputs/`` (see its README),
+    chains grouped by file stem without the chain number, the broken runsets included."""
+    import re
+
+    from tests.conftest import require_shared
+
+    runs: dict[tuple[Path, str], list[Path]] = {}
+    for path in sorted((require_shared() / "cmdstan-outputs").rglob("*.csv")):
+        stem = re.sub(r"[-_]?(output)?[-_]?\d+$", "", path.stem) or path.stem
+        runs.setdefault((path.parent, stem), []).append(path)
+    return list(runs.values())
+
+
+def test_reference_runs_converted_for_blocks_read_as_the_whole_reader(own_tempdir):
+    """Real CmdStan output (saved warmup, multi-index arrays, fixed_param, a model without
+    parameters, the broken runsets): the conversion to a Zarr store gives the same problems,
+    settings and groups, value for value, as reading the files whole."""
+    from auditor.boundary import Boundary
+    from auditor.loaders.lazy import load_lazily
+
+    runs = _reference_runs()
+    assert len(runs) >= 10
+    compared = 0
+    for paths in runs:
+        gate = Boundary(paths[0].parents[1])
+        whole = load_draws(paths, gate)
+        lazily, cleanup = load_lazily(paths, gate)
+        try:
+            assert sorted(map(str, lazily.problems)) == sorted(map(str, whole.problems)), paths
+            assert (lazily.tree is None) == (whole.tree is None), paths
+            if whole.tree is None:
+                continue
+            assert lazily.settings == whole.settings
+            assert sorted(lazily.tree.children) == sorted(whole.tree.children), paths
+            for group in whole.tree.children:
+                xr.testing.assert_identical(whole.tree[group].to_dataset(),
+                                            lazily.tree[group].to_dataset().load())
+            compared += 1
+        finally:
+            for action in cleanup:
+                action()
+    assert compared >= 8
+    assert list(own_tempdir.iterdir()) == []

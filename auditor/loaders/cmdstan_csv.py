@@ -236,7 +236,7 @@ _HEAD_LIMIT = 64 * 1024 * 1024
 _HEAD_CHUNK = 1 << 20
 _BOM = b"\xef\xbb\xbf"
 #: With a file-backed store, its pages are released after about this many bytes of rows.
-RELEASE_BYTES = 256 * 2**20
+RELEASE_BYTES = 128 * 2**20
 
 
 def _looks_binary(data: bytes | bytearray) -> bool:
