@@ -137,9 +137,14 @@ def child(project: Path, out: Path, reports: str) -> None:
     report = json.loads((out / "audit.json").read_text())
     failed = [f["message"] for a in report["analyses"] for f in a["findings"]
               if f["rule"] == "inputs.rule-failed"]
+    # What made the exit status 1 (error-level findings, by rule and analyses hit).
+    errors: dict[str, int] = {}
+    for a in report["analyses"]:
+        for rule in sorted({f["rule"] for f in a["findings"] if f.get("severity") == "error"}):
+            errors[rule] = errors.get(rule, 0) + 1
     print(json.dumps({"status": status, "t_audit_s": elapsed, "rss_before_mb": rss_before,
                       "peak_rss_mb": _status("VmHWM"), "analyses": len(report["analyses"]),
-                      "rule_failed": failed[:3]}))
+                      "rule_failed": failed[:3], "errors": errors}))
 
 
 def main() -> None:
