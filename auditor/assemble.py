@@ -149,9 +149,26 @@ def _companion(groups: dict[str, xr.Dataset], y: str, candidates: list[tuple[str
     return None
 
 
-def _load(paths: list[Path], gate: Boundary) -> Loaded:
-    """``load_draws``, with a reader's own failure turned into a problem of the files."""
+def _load(paths: list[Path], gate: Boundary, analysis: Analysis | None = None,
+          lazy_bytes: int | None = None) -> Loaded:
+    """``load_draws``, with a reader's own failure turned into a problem of the files.
+
+    Draws larger than ``lazy_bytes`` are read lazily (:mod:`auditor.loaders.lazy`) when
+    Dask and Zarr are installed; the actions that remove a temporary store go to
+    ``analysis.cleanup`` and ``analysis.whole_limit`` is set.
+    """
     try:
+        if lazy_bytes is not None and analysis is not None:
+            from auditor.loaders import lazy
+
+            size = lazy.draws_size(paths, gate)
+            if size is not None and size > lazy_bytes and not lazy.missing_libraries():
+                loaded, cleanup = lazy.load_lazily(paths, gate)
+                analysis.cleanup.extend(cleanup)
+                if loaded.tree is not None:
+                    analysis.whole_limit = (gate.max_bytes if gate.max_bytes is not None
+                                            else 2**62)
+                return loaded
         return load_draws(paths, gate)
     except Exception as exc:  # noqa: BLE001 - a reader bug must cost only these files
         return Loaded(tree=None, problems=[
@@ -184,15 +201,17 @@ def _reader_failed(path: Path, what: str, exc: Exception) -> InputProblem:
         "it was left out; please report this to the tool's maintainers with the file")
 
 
-def assemble(spec: AnalysisSpec, gate: Boundary | None = None) -> Analysis:
+def assemble(spec: AnalysisSpec, gate: Boundary | None = None,
+             lazy_bytes: int | None = None) -> Analysis:
     """Load every file of ``spec`` through ``gate``; problems are recorded, never raised.
 
     ``gate`` is the project boundary (default: type and size checks only). A
     reader that raises on odd input despite its own checks costs only the
-    file it was reading, which is reported.
+    file it was reading, which is reported. Draws larger than ``lazy_bytes`` are
+    read lazily (``None``: always whole); call :meth:`Analysis.release` when done.
     """
     try:
-        return _assemble(spec, gate)
+        return _assemble(spec, gate, lazy_bytes)
     except Exception as exc:  # noqa: BLE001 - last line of defence; see _assemble
         analysis = Analysis(name=spec.name, tree=None, spec=spec)
         analysis.problems.extend(spec.problems)
@@ -201,7 +220,8 @@ def assemble(spec: AnalysisSpec, gate: Boundary | None = None) -> Analysis:
         return analysis
 
 
-def _assemble(spec: AnalysisSpec, gate: Boundary | None = None) -> Analysis:
+def _assemble(spec: AnalysisSpec, gate: Boundary | None = None,
+              lazy_bytes: int | None = None) -> Analysis:
     """Load every file of ``spec`` through ``gate``; problems are recorded, never raised.
 
     ``gate`` is the project boundary (default: type and size checks only).
@@ -237,7 +257,7 @@ def _assemble(spec: AnalysisSpec, gate: Boundary | None = None) -> Analysis:
             analysis.problems.append(InputProblem("unreadable", p, "draws file not found"))
         present = [p for p in spec.draws if _exists(p)]
         if present:
-            loaded = _load(present, gate)
+            loaded = _load(present, gate, analysis, lazy_bytes)
             analysis.settings = loaded.settings
             analysis.sources = list(loaded.sources)
             analysis.problems.extend(_problems(loaded.problems))
@@ -250,7 +270,8 @@ def _assemble(spec: AnalysisSpec, gate: Boundary | None = None) -> Analysis:
                 analysis.problems.append(
                     InputProblem("unreadable", p, "prior draws file not found")
                 )
-        loaded = _load([p for p in spec.prior_draws if _exists(p)], gate)
+        loaded = _load([p for p in spec.prior_draws if _exists(p)], gate, analysis,
+                       lazy_bytes)
         analysis.problems.extend(_problems(loaded.problems))
         analysis.sources.extend(p for p in loaded.sources if p not in analysis.sources)
         prior = _groups(loaded.tree)
@@ -263,6 +284,13 @@ def _assemble(spec: AnalysisSpec, gate: Boundary | None = None) -> Analysis:
         post["prior_predictive"] = prior["prior_predictive"]
     if "sample_stats" in prior:
         post["sample_stats_prior"] = prior["sample_stats"]
+    if analysis.whole_limit is not None:
+        # Draws read lazily: what is not read block by block is loaded now, if it fits.
+        from auditor.loaders.lazy import settle
+
+        lost: list[LoadProblem] = []
+        settle(post, analysis.whole_limit, (spec.draws or spec.prior_draws)[0], lost)
+        analysis.problems.extend(_problems(lost))
     if post:
         analysis.tree = _tree(post, attrs)
     if spec.data is not None:

@@ -41,6 +41,14 @@ def _parser() -> argparse.ArgumentParser:
     audit.add_argument("--since", metavar="REF",
                        help="audit only the analyses whose inputs changed since git revision "
                             "REF")
+    where = audit.add_mutually_exclusive_group()
+    where.add_argument("--scheduler", metavar="ADDRESS",
+                       help="send the analyses to a running Dask distributed scheduler "
+                            "(e.g. tcp://10.0.0.5:8786); every worker must reach the project "
+                            "at the same path (needs the scale extra)")
+    where.add_argument("--workers", type=_positive, metavar="N",
+                       help="audit on a local Dask cluster of N worker processes (needs the "
+                            "scale extra)")
     audit.add_argument("--quiet", action="store_true",
                        help="print only the closing line (no findings, no progress)")
     audit.add_argument("--no-write", action="store_true",
@@ -64,6 +72,16 @@ def _parser() -> argparse.ArgumentParser:
     explain = sub.add_parser("explain", help="explain one rule")
     explain.add_argument("rule_id", metavar="RULE_ID")
     return parser
+
+
+def _positive(text: str) -> int:
+    try:
+        value = int(text)
+    except ValueError:
+        value = 0
+    if value < 1:
+        raise argparse.ArgumentTypeError(f"must be a whole number >= 1, not {text!r}")
+    return value
 
 
 def _common(cmd: argparse.ArgumentParser) -> None:
@@ -148,18 +166,20 @@ def _cmd_explain(rule_id: str) -> int:
 
 
 def _cmd_audit(args: argparse.Namespace) -> int:
-    from auditor.engine import NothingToAudit, project_root, run_audit
+    from auditor.engine import NothingToAudit, project_root, return_large_blocks, run_audit
     from auditor.reporters import ReportPathError, write_reports
     from auditor.reporters.terminal import closing_line, render, terminal_progress, use_colour
 
     paths = args.paths or [Path.cwd()]
+    return_large_blocks()
     overrides = {"gate": args.gate, "report": args.report, "policy": args.policy}
     progress = None if args.quiet else terminal_progress(sys.stderr)
     try:
         result = run_audit(paths, config_path=args.config, overrides=overrides,
                            allow_read=tuple(args.allow_read), baseline=args.baseline,
                            gate_new_only=args.gate_new_only, since=args.since,
-                           progress=progress)
+                           progress=progress, scheduler=args.scheduler,
+                           workers=args.workers)
     except NothingToAudit as exc:
         print(f"{TOOL_NAME}: {exc}", file=sys.stderr)
         return 0 if args.allow_empty else EXIT_NOTHING

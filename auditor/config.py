@@ -21,6 +21,12 @@ from auditor.boundary import DEFAULT_MAX_SHARE, Boundary, Refused, display
 from auditor.model import AnalysisSpec, InputProblem
 from auditor.result import GATES
 
+#: Default share of the available memory above which draws are read lazily, in blocks
+#: (a Zarr store through Dask; a CmdStan CSV converted to a temporary Zarr store first).
+#: Reading a CmdStan CSV whole takes about five times its size at its peak (issue 15: a
+#: 320 MB posterior peaked at 1.7 GB), so 5% keeps that peak near a quarter of the memory.
+DEFAULT_LAZY_SHARE = 0.05
+
 DEFAULTS: dict[str, Any] = {
     "gate": "error",
     "report": ["json"],
@@ -29,6 +35,7 @@ DEFAULTS: dict[str, Any] = {
     "max_table_rows": 1000,
     "page_size": "A4",
     "max_input_share": DEFAULT_MAX_SHARE,
+    "lazy_share": DEFAULT_LAZY_SHARE,
 }
 
 ANALYSIS_KEYS = frozenset(
@@ -158,6 +165,7 @@ TOP_TYPES: dict[str, Callable[[Any], Any]] = {
     "max_table_rows": _count,
     "page_size": _one_of(PAGE_SIZES),
     "max_input_share": _share,
+    "lazy_share": _share,
     "policy": _text,
     "accepted": _text,
     "rules": _table,
@@ -215,6 +223,10 @@ class Config:
     max_table_rows: int = 1000
     page_size: str = "A4"
     max_input_share: float = DEFAULT_MAX_SHARE
+    #: Draws larger than this share of the available memory are read lazily, block by
+    #: block (see :mod:`auditor.loaders.lazy`). Not in :meth:`effective`: it changes how
+    #: the draws are read, never a result.
+    lazy_share: float = DEFAULT_LAZY_SHARE
     #: The policy: a built-in name or a path (see :mod:`auditor.gate.policy`).
     policy: str = "everyday"
     #: The accepted-findings file (see :mod:`auditor.gate.accepted`); ``None``: the

@@ -6,22 +6,27 @@ it and return findings, and the :class:`AuditResult` carries them to reporters.
 
 from __future__ import annotations
 
+import ctypes
+import dataclasses
 import datetime as dt
+import gc
 import hashlib
 import importlib.metadata
 import os
+import sys
 import traceback
-from collections.abc import Callable
+from collections.abc import Callable, Iterator
+from dataclasses import dataclass
 from pathlib import Path
 from typing import Any
 
 from auditor import TOOL_NAME, __version__
 from auditor.assemble import assemble
-from auditor.boundary import Boundary, Refused, default_max_bytes, display
+from auditor.boundary import Boundary, Refused, available_memory, default_max_bytes, display
 from auditor.comparison import ComparisonSet, comparison_sets
 from auditor.config import Config, ConfigError, apply_policy, check_rule_options, load_config
 from auditor.coverage import analysis_coverage, comparison_coverage
-from auditor.diagnostics import DiagnosticsTable
+from auditor.diagnostics import BlockRunner, DiagnosticsTable
 from auditor.discovery import discover
 from auditor.findings import Finding, Location, Severity
 from auditor.gate.accepted import DEFAULT_FILE as ACCEPTED_FILE
@@ -112,12 +117,14 @@ def _analysis_files(analysis: Analysis) -> set[Path]:
     return files
 
 
-def _input_files(files: set[Path], project: Project, cfg: Config,
-                 gate: Boundary) -> list[InputFile]:
-    if cfg.source is not None:
-        files = files | {cfg.source}
+def _fingerprints(files: set[Path], project: Project, gate: Boundary,
+                  skip: frozenset[Path] | set[Path] = frozenset()) -> list[InputFile]:
+    """SHA-256 and size of each file (relative to the project) not in ``skip``, leaving
+    out the files the boundary refuses."""
     out = []
     for path in sorted(files, key=lambda p: project.relpath(p)):
+        if path in skip:
+            continue
         found = _fingerprint(path, gate)
         if found is not None:
             out.append(InputFile(project.relpath(path), *found))
@@ -219,13 +226,14 @@ Unscored = tuple[str, str, str, str, bool]
 
 
 def _audit_analysis(analysis: Analysis, project: Project, rules: list[RuleMeta],
-                    cfg: Config, gate: Boundary
+                    cfg: Config, gate: Boundary, blocks: BlockRunner | None = None
                     ) -> tuple[AnalysisResult, list[LooRecord], list[Unscored]]:
     """Run every enabled analysis-scope rule; return the compact result, the compact
     PSIS-LOO records the project-level comparison needs, and the observed variables
-    it could not score (``(analysis, observed, key, label, chosen)``)."""
+    it could not score (``(analysis, observed, key, label, chosen)``). ``blocks`` runs
+    the diagnostics table's blocks of a posterior read lazily (on a Dask cluster)."""
     one_based = analysis.settings.library == "CmdStan"
-    table = DiagnosticsTable(analysis.group("posterior"), one_based=one_based)
+    table = DiagnosticsTable(analysis.group("posterior"), one_based=one_based, runner=blocks)
     loo = LooTable(analysis)
     sensitivity = SensitivityTable(analysis)
     findings: list[Finding] = []
@@ -508,7 +516,10 @@ def run_audit(paths: list[Path], config_path: Path | None = None,
               gate_new_only: bool = False,
               today: dt.date | None = None,
               since: str | None = None,
-              progress: Callable[[str, int, int], None] | None = None) -> AuditResult:
+              progress: Callable[[str, int, int], None] | None = None,
+              scheduler: str | None = None,
+              workers: int | None = None,
+              rules_root: Path | None = None) -> AuditResult:
     """Audit ``paths`` (a project folder or files) and return the one result.
 
     Nothing outside the project root is read, except under the folders of
@@ -518,11 +529,15 @@ def run_audit(paths: list[Path], config_path: Path | None = None,
     is the date acceptances expire against (default: today); ``since`` a git
     revision: only analyses whose inputs changed since then are audited;
     ``progress(what, done, total)`` is called as the audit goes (for a progress bar).
+    ``scheduler`` (the address of a running Dask scheduler) or ``workers`` (a local
+    Dask cluster of that many worker processes) spread the analyses over a cluster
+    (:mod:`auditor.cluster`); the result is the same as the serial run's.
+    ``rules_root`` is a folder of rule folders to use instead of the installed ones.
 
     Raises
     ------
     auditor.config.ConfigError
-        Unreadable or invalid configuration.
+        Unreadable or invalid configuration, or a cluster that cannot be used.
     NothingToAudit
         No analysis found.
     """
@@ -530,7 +545,8 @@ def run_audit(paths: list[Path], config_path: Path | None = None,
     if missing:
         raise NothingToAudit(f"{display(missing[0])}: no such file or folder")
     root = project_root(paths)
-    gate, cfg, rules, policy = _prepare(root, config_path, overrides, only_rules, allow_read)
+    gate, cfg, rules, policy = _prepare(root, config_path, overrides, only_rules, allow_read,
+                                        rules_root=rules_root)
     specs, problems = analysis_specs(paths, cfg, root, gate)
     if not specs:
         raise NothingToAudit(
@@ -543,12 +559,13 @@ def run_audit(paths: list[Path], config_path: Path | None = None,
             raise NothingToAudit(f"{root}: no analysis has inputs that changed since {since}")
     return audit_specs(specs, problems, root, gate, cfg, rules, policy,
                        baseline=baseline, gate_new_only=gate_new_only, today=today,
-                       progress=progress)
+                       progress=progress, scheduler=scheduler, workers=workers,
+                       rules_root=rules_root)
 
 
 def _prepare(root: Path, config_path: Path | None, overrides: dict[str, Any] | None,
-             only_rules: set[str] | None, allow_read: tuple[Path, ...], find: bool = True
-             ) -> tuple[Boundary, Config, list[RuleMeta], Policy]:
+             only_rules: set[str] | None, allow_read: tuple[Path, ...], find: bool = True,
+             rules_root: Path | None = None) -> tuple[Boundary, Config, list[RuleMeta], Policy]:
     """The boundary, the effective configuration (policy beneath it) and the rules."""
     gate = Boundary(root, extra=tuple(allow_read), max_bytes=default_max_bytes())
     cfg = load_config(root, config_path, overrides or {}, gate, find=find)
@@ -556,37 +573,202 @@ def _prepare(root: Path, config_path: Path | None, overrides: dict[str, Any] | N
     cfg.only_rules = only_rules
     policy = _policy(cfg, gate)
     apply_policy(cfg, policy)
-    rules = all_rules()
+    rules = _rules(rules_root)
     check_rule_options(cfg, rules)
     return gate, cfg, rules, policy
+
+
+def _rules(root: Path | None) -> list[RuleMeta]:
+    """The rules of the folder ``root``, or the installed ones."""
+    return all_rules() if root is None else all_rules(root)
+
+
+@dataclass(frozen=True)
+class AuditJob:
+    """What auditing one analysis needs besides its spec, in plain picklable data.
+
+    A Dask worker gets this and rebuilds the boundary from it, and loads the rules
+    again from their folders (``rules_root``; ``None``: the installed rules): rule
+    checks are loaded from files by the registry, so they are never pickled.
+    ``lazy_bytes``: draws larger than this are read lazily (``None``: never).
+    """
+
+    root: Path
+    extra: tuple[Path, ...]
+    max_bytes: int | None
+    cfg: Config
+    rules_root: Path | None = None
+    lazy_bytes: int | None = None
+
+    @classmethod
+    def of(cls, gate: Boundary, cfg: Config, rules_root: Path | None = None) -> AuditJob:
+        """The job of an audit: the boundary's settings and the configuration without its
+        ``[[analysis]]`` entries (each task gets its own spec)."""
+        assert gate.root is not None
+        return cls(gate.root, gate.extra, gate.max_bytes,
+                   dataclasses.replace(cfg, analyses=[]), rules_root,
+                   lazy_bytes(cfg.lazy_share))
+
+    def boundary(self) -> Boundary:
+        return Boundary(self.root, extra=self.extra, max_bytes=self.max_bytes)
+
+
+#: What :func:`audit_one` returns: the compact result, the PSIS-LOO records, the observed
+#: variables without PSIS-LOO, and the fingerprints of the input files it read.
+OneResult = tuple[AnalysisResult, list[LooRecord], list[Unscored], list[InputFile]]
+
+
+def audit_one(spec: AnalysisSpec, job: AuditJob, hashed: frozenset[Path] = frozenset(),
+              blocks: BlockRunner | None = None) -> OneResult:
+    """Load one analysis, audit it, reduce it to its compact result and release its draws.
+
+    A top-level function of plain arguments, so that a Dask worker can run it: the
+    boundary is rebuilt from ``job`` and the rules are loaded again from their folders.
+    ``hashed`` are files already fingerprinted by this audit (not hashed again);
+    ``blocks`` runs the blocks of a posterior read lazily (see :class:`DiagnosticsTable`).
+    """
+    gate = job.boundary()
+    rules = _rules(job.rules_root)
+    project = Project(root=job.root)
+    analysis = assemble(spec, gate, lazy_bytes=job.lazy_bytes)
+    try:
+        result, records, unscored = _audit_analysis(analysis, project, rules, job.cfg, gate,
+                                                    blocks)
+        inputs = _fingerprints(_analysis_files(analysis), project, gate, hashed)
+    finally:
+        analysis.release()
+        del analysis
+        release_memory()
+    return result, records, unscored, inputs
+
+
+def lazy_bytes(share: float) -> int | None:
+    """Draws larger than ``share`` of the available memory are read lazily (``None``
+    when the available memory cannot be read: everything is read whole)."""
+    avail = available_memory()
+    return None if avail is None else int(avail * share)
+
+
+def release_memory() -> None:
+    """Give the memory of a released analysis back to the system.
+
+    glibc keeps freed blocks of the heap for reuse, and after large frees raises its
+    threshold for serving allocations from the heap rather than by ``mmap``; the heap
+    then fragments and the process grows with every analysis read (measured with
+    ``benchmarks/bench_many.py``: about 2 MB per analysis of 4 x 1000 x 200 draws).
+    ``malloc_trim`` returns the free pages; elsewhere (not glibc) this only collects.
+    """
+    gc.collect()
+    if sys.platform.startswith("linux"):
+        try:
+            ctypes.CDLL("libc.so.6").malloc_trim(0)
+        except (OSError, AttributeError):  # not glibc (musl): nothing to trim
+            pass
+
+
+#: glibc's ``mallopt`` parameter for the size from which allocations are served by ``mmap``.
+_M_MMAP_THRESHOLD = -3
+#: Allocations from this size on are served by ``mmap`` once :func:`return_large_blocks` ran:
+#: blocks of draws, windows read from a store and parsed CSV text, not the kernel's small
+#: temporaries (which the heap serves faster).
+MMAP_THRESHOLD = 4 * 2**20
+
+
+def return_large_blocks() -> None:
+    """Have glibc serve allocations of :data:`MMAP_THRESHOLD` bytes or more by ``mmap`` and
+    give them back to the system when freed (the command line calls this once).
+
+    By default glibc raises that threshold after large frees (up to 32 MiB), after which
+    freed windows of a lazily read store stay in the process: reading a 305 MB posterior in
+    windows peaked 300 MB higher with the default than with a fixed threshold (measured with
+    ``benchmarks/bench_big.py``). Not done for library use (the Python API), where the
+    process is the user's. Elsewhere than glibc this does nothing.
+    """
+    if sys.platform.startswith("linux"):
+        try:
+            ctypes.CDLL("libc.so.6").mallopt(_M_MMAP_THRESHOLD, MMAP_THRESHOLD)
+        except (OSError, AttributeError):  # not glibc
+            pass
+
+
+def _failed_analysis(spec: AnalysisSpec, root: Path, error: Exception | str) -> OneResult:
+    """The result of an analysis whose audit could not run at all (a worker that died,
+    a task that could not be sent): one ``inputs.rule-failed`` finding."""
+    project = Project(root=root)
+    first = (spec.draws or spec.prior_draws or [spec.model or Path(spec.name)])[0]
+    finding = _failure("the audit", None, project, error)
+    finding = dataclasses.replace(finding, analysis=spec.name,
+                                  location=_existing_location(project, first, None))
+    result = AnalysisResult(name=spec.name, sources=[project.relpath(p) for p in spec.draws],
+                            settings={}, n_chains=0, n_draws=0, diagnostics=[],
+                            findings=[finding])
+    return result, [], [], []
+
+
+def _serial(specs: list[AnalysisSpec], job: AuditJob,
+            progress: Callable[[str, int, int], None] | None) -> Iterator[tuple[int, OneResult]]:
+    """Audit the analyses one after the other in this process."""
+    hashed: set[Path] = set()
+    for done, spec in enumerate(specs):
+        if progress is not None:
+            progress(f"auditing {spec.name}", done, len(specs))
+        try:
+            one = audit_one(spec, job, frozenset(hashed))
+        except Exception as exc:  # a part outside the rules failing costs this analysis only
+            one = _failed_analysis(spec, job.root, exc)
+        hashed |= _spec_files(spec)
+        yield done, one
+
+
+def _spec_files(spec: AnalysisSpec) -> set[Path]:
+    """The files of a spec that an analysis shares with others (data, program)."""
+    return {p for p in (spec.data, spec.model) if p is not None}
 
 
 def audit_specs(specs: list[AnalysisSpec], problems: list[InputProblem], root: Path,
                 gate: Boundary, cfg: Config, rules: list[RuleMeta], policy: Policy, *,
                 baseline: Path | None = None, gate_new_only: bool = False,
                 today: dt.date | None = None,
-                progress: Callable[[str, int, int], None] | None = None) -> AuditResult:
+                progress: Callable[[str, int, int], None] | None = None,
+                scheduler: str | None = None, workers: int | None = None,
+                rules_root: Path | None = None) -> AuditResult:
     """Audit the analyses ``specs`` (the part of :func:`run_audit` after finding them;
     the Python API calls it with analyses whose draws are already in memory)."""
     project = Project(root=root, problems=problems)
-    # First pass, one analysis at a time: load, audit, keep the compact result,
-    # release the draws, so memory is bounded by the largest analysis.
+    job = AuditJob.of(gate, cfg, rules_root)
+    # First pass, one analysis at a time (or spread over a cluster): load, audit, keep
+    # the compact result, release the draws, so memory is bounded by the largest
+    # analysis. Results are put back in the order of the specs, so that the report
+    # does not depend on which analysis finished first.
+    slots: list[OneResult | None] = [None] * len(specs)
+    if scheduler is None and not workers:
+        for i, one in _serial(specs, job, progress):
+            slots[i] = one
+    else:
+        from auditor.cluster import Cluster
+
+        with Cluster(scheduler=scheduler, workers=workers) as cluster:
+            for i, one in cluster.audit(specs, job, gate, progress):
+                slots[i] = one
     analyses: list[AnalysisResult] = []
     records: list[LooRecord] = []
     unscored: list[Unscored] = []
-    files: set[Path] = set()
-    for done, spec in enumerate(specs):
-        if progress is not None:
-            progress(f"auditing {spec.name}", done, len(specs))
-        analysis = assemble(spec, gate)
-        result, loo_records, no_loo = _audit_analysis(analysis, project, rules, cfg, gate)
+    inputs: dict[str, InputFile] = {}
+    for i, one in enumerate(slots):
+        if one is None:  # pragma: no cover - every runner fills every slot
+            one = _failed_analysis(specs[i], root, "no result came back")
+        result, loo_records, no_loo, files = one
         analyses.append(result)
         records.extend(loo_records)
         unscored.extend(no_loo)
-        files |= _analysis_files(analysis)
-        del analysis
+        for f in files:
+            inputs.setdefault(f.path, f)
+    del slots
     if progress is not None:
         progress("comparing models", len(specs), len(specs))
+    if cfg.source is not None:
+        for f in _fingerprints({cfg.source}, project, gate):
+            inputs.setdefault(f.path, f)
     # Second pass, on compact results only: comparison across analyses.
     sets = comparison_sets(records, unscored)
     _cover_comparison(analyses, records, sets, rules, cfg)
@@ -601,7 +783,7 @@ def audit_specs(specs: list[AnalysisSpec], problems: list[InputProblem], root: P
         project_findings=project.findings,
         gate=cfg.gate,
         rules=rules,
-        inputs=_input_files(files, project, cfg, gate),
+        inputs=[inputs[k] for k in sorted(inputs)],
         comparisons=[c.as_dict() for c in sets],
         config=cfg.effective(),
         libraries=_libraries(),

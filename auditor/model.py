@@ -19,6 +19,7 @@ Standard sampler statistics (``sample_stats``), whatever sampler wrote them:
 from __future__ import annotations
 
 import os
+from collections.abc import Callable
 from dataclasses import dataclass, field
 from pathlib import Path
 from typing import Any
@@ -163,6 +164,22 @@ class Analysis:
     pairings: list[Pairing] = field(default_factory=list)
     #: Simulation-based calibration ranks read for this analysis (``SbcRanks``), if any.
     sbc: Any = None
+    #: Draws read lazily (Dask arrays, see :mod:`auditor.loaders.lazy`): the most bytes a
+    #: computation may load whole from them; ``None`` when everything is in memory.
+    whole_limit: int | None = None
+    #: What to undo once the analysis is audited (temporary stores of converted draws).
+    cleanup: list[Callable[[], None]] = field(default_factory=list, repr=False)
+
+    def release(self) -> None:
+        """Drop the draws and run the cleanup actions (each once; errors are ignored:
+        a temporary folder that is already gone is no concern of the audit)."""
+        self.tree = None
+        while self.cleanup:
+            action = self.cleanup.pop()
+            try:
+                action()
+            except OSError:
+                pass
 
     def group(self, name: str) -> xr.Dataset | None:
         """Dataset of group ``name``, or ``None`` when absent or empty."""

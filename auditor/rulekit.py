@@ -47,6 +47,17 @@ def low_ess_findings(ctx: RuleContext, column: str, label: str) -> Iterator[Find
         )
 
 
+def draws_blocks(da, block_bytes: int = 16 * 2**20) -> Iterator[np.ndarray]:  # noqa: ANN001
+    """The draws of one (chain, draw, ...) variable in blocks of elements, each (chains,
+    draws, k) in C order (of about ``block_bytes``), so that draws read lazily are never
+    loaded whole."""
+    from auditor.diagnostics import element_blocks
+
+    per_draw = 8 * int(da.sizes["chain"]) * int(da.sizes["draw"])
+    for _, block in element_blocks(da, max(1, block_bytes // max(1, per_draw))):
+        yield block
+
+
 def sample_stat(ctx: RuleContext, name: str) -> np.ndarray | None:
     """Sampler statistic ``name`` as a (chain, draw) array, or ``None`` when absent."""
     ds = ctx.analysis.group("sample_stats")

@@ -23,6 +23,8 @@ from typing import TYPE_CHECKING, Any
 
 import numpy as np
 
+from auditor.diagnostics import element_blocks
+
 if TYPE_CHECKING:
     from auditor.model import Analysis
 
@@ -115,8 +117,7 @@ class SensitivityTable:
         post = self.analysis.group("posterior")
         if name:
             if post is not None and name in post.data_vars:
-                arr = np.asarray(post[name].transpose("chain", "draw", ...).values, float)
-                return arr.reshape(arr.shape[0], arr.shape[1], -1).sum(axis=2), CONFIGURED, \
+                return _summed_variable(post[name], self.analysis.whole_limit), CONFIGURED, \
                     [], [], ""
             return None, CONFIGURED, [], [], (f"the configured log_prior = {name!r} is not "
                                               "among the draws")
@@ -126,8 +127,23 @@ class SensitivityTable:
                                       "variable configured, and no program to evaluate")
         from auditor.logprior import evaluate_log_prior
 
+        draws: Any = post
+        limit = self.analysis.whole_limit
+        if limit is not None:
+            # Draws read lazily: only the program's variables, and only when they fit.
+            names = [n for n in (d.name for d in prog.declarations.values())
+                     if n in post.data_vars and "chain" in post[n].dims]
+            size = sum(int(post[n].nbytes) for n in names)
+            if size > limit:
+                return None, PROGRAM, [], [], (
+                    f"the program's priors were not evaluated: its variables' draws hold "
+                    f"{size / 1e6:,.0f} MB, more than the {limit / 1e6:,.0f} MB that may be "
+                    "read whole (save the log-prior among the draws, e.g. `lprior`, and name "
+                    "it with log_prior)")
+            draws = {n: np.asarray(post[n].transpose("chain", "draw", ...).values)
+                     for n in names}
         try:
-            found = evaluate_log_prior(prog, post, self.analysis.data)
+            found = evaluate_log_prior(prog, draws, self.analysis.data)
         except ValueError as exc:
             return None, PROGRAM, [], [], f"the program's priors could not be evaluated ({exc})"
         if found.values is None:
@@ -139,7 +155,7 @@ class SensitivityTable:
     @cached_property
     def power(self) -> Power | None:
         """Power-scaling sensitivity of every parameter, or ``None`` (see :attr:`missing`)."""
-        from auditor.kernels.psense import psense_summary
+        from auditor.kernels.psense import Sensitivity, diagnose, psense_summary
 
         lp, source, left_out, without, _ = self.log_prior
         ll = self.log_likelihood
@@ -147,24 +163,40 @@ class SensitivityTable:
         if lp is None or ll is None or post is None or lp.shape != ll.shape:
             return None
         names = _parameter_names(self.analysis, set())
-        columns, labels, variables = [], [], []
+        prior_s, lik_s, labels, variables = [], [], [], []
+        found = None
+        per_block = _per_block(lp.shape)
         for n in names:
             da = post[n]
-            arr = np.asarray(da.transpose("chain", "draw", ...).values, dtype=float)
-            if arr.shape[:2] != lp.shape or not np.all(np.isfinite(arr)):
+            if tuple(int(da.sizes[d]) for d in ("chain", "draw")) != lp.shape:
                 continue
-            columns.append(arr.reshape(arr.shape[0], arr.shape[1], -1))
+            # Quantities are independent in the kernel, so the variable is taken block by
+            # block (a posterior read lazily is never loaded whole); a variable with a
+            # non-finite draw is left out, as a whole.
+            parts: list[Any] = []
+            for _, block in element_blocks(da, per_block):
+                block = np.asarray(block, dtype=float)
+                if not np.all(np.isfinite(block)):
+                    parts = []
+                    break
+                try:
+                    found = psense_summary(block, lp, ll)
+                except (ValueError, FloatingPointError) as exc:
+                    self.errors.append(f"power-scaling sensitivity failed: {exc}")
+                    return None
+                parts.append(found)
+            if not parts:
+                continue
+            prior_s += [p.prior for p in parts]
+            lik_s += [p.likelihood for p in parts]
             new = _labels(n, da, self.one_based)
             labels += new
             variables += [n] * len(new)
-        if not columns:
+        if found is None or not labels:
             return None
-        draws = np.concatenate(columns, axis=2)
-        try:
-            s = psense_summary(draws, lp, ll)
-        except (ValueError, FloatingPointError) as exc:
-            self.errors.append(f"power-scaling sensitivity failed: {exc}")
-            return None
+        prior, likelihood = np.concatenate(prior_s), np.concatenate(lik_s)
+        s = Sensitivity(prior, likelihood, diagnose(prior, likelihood, found.threshold),
+                        found.pareto_k, found.threshold)
         return Power(labels, variables, np.asarray(s.prior), np.asarray(s.likelihood),
                      list(s.diagnosis), s.pareto_k, s.threshold, source, left_out, without)
 
@@ -206,15 +238,48 @@ class SensitivityTable:
         for n in _parameter_names(self.analysis, set()):
             if n not in prior.data_vars:
                 continue
-            a = np.asarray(post[n].transpose("chain", "draw", ...).values, dtype=float)
-            b = np.asarray(prior[n].transpose("chain", "draw", ...).values, dtype=float)
-            a = a.reshape(a.shape[0] * a.shape[1], -1)
-            b = b.reshape(b.shape[0] * b.shape[1], -1)
-            if a.shape[1] != b.shape[1]:
+            a_da, b_da = post[n], prior[n]
+            if _elements(a_da) != _elements(b_da):
                 continue
-            with np.errstate(all="ignore"):
-                ratio = np.var(a, axis=0, ddof=1) / np.var(b, axis=0, ddof=1)
-            for label, r in zip(_labels(n, post[n], self.one_based), ratio, strict=True):
-                if np.isfinite(r):
-                    out[label] = float(1.0 - r)
+            labels = _labels(n, a_da, self.one_based)
+            per_block = _per_block((int(a_da.sizes["chain"]), int(a_da.sizes["draw"])))
+            # Block by block, the posterior's and the prior's elements side by side.
+            for (first, a), (_, b) in zip(element_blocks(a_da, per_block),
+                                          element_blocks(b_da, per_block), strict=True):
+                a = np.asarray(a, dtype=float)
+                b = np.asarray(b, dtype=float)
+                a = a.reshape(a.shape[0] * a.shape[1], -1)
+                b = b.reshape(b.shape[0] * b.shape[1], -1)
+                with np.errstate(all="ignore"):
+                    ratio = np.var(a, axis=0, ddof=1) / np.var(b, axis=0, ddof=1)
+                for label, r in zip(labels[first:first + ratio.size], ratio, strict=True):
+                    if np.isfinite(r):
+                        out[label] = float(1.0 - r)
         return out
+
+
+#: Working bytes of the draws of one block of quantities (power-scaling, contraction).
+BLOCK_BYTES = 16 * 2**20
+
+
+def _per_block(shape: tuple[int, ...]) -> int:
+    """Quantities per block of draws of ``shape`` (chains, draws)."""
+    return max(1, BLOCK_BYTES // max(1, 8 * int(np.prod(shape))))
+
+
+def _elements(da: Any) -> int:
+    """Elements of one draw of a (chain, draw, ...) variable."""
+    return int(np.prod([da.sizes[d] for d in da.dims if d not in ("chain", "draw")]))
+
+
+def _summed_variable(da: Any, limit: int | None) -> np.ndarray:
+    """A variable summed over its elements per draw (chains, draws); block by block when
+    it was read lazily and does not fit within ``limit``."""
+    da = da.transpose("chain", "draw", ...)
+    if limit is None or int(da.nbytes) <= limit:
+        arr = np.asarray(da.values, float)
+        return arr.reshape(arr.shape[0], arr.shape[1], -1).sum(axis=2)
+    total = np.zeros((int(da.sizes["chain"]), int(da.sizes["draw"])))
+    for _, block in element_blocks(da, _per_block(total.shape)):
+        total += np.asarray(block, float).sum(axis=2)
+    return total

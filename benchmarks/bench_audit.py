@@ -11,7 +11,7 @@ temporary project. Then, in the same process:
 - the whole audit through the command line's entry point (``auditor.cli.main``), with the
   reports given by ``--report`` (default json, html, md, sarif; pdf needs weasyprint and a
   child process), its time split into phases by wrapping the known functions at run time
-  (nothing of the engine is changed): reading (``engine.build_project``: discovery, loaders,
+  (nothing of the engine is changed): reading (``engine.assemble``: loaders,
   assembly), hashing (``engine._fingerprint``: SHA-256 of the inputs for the report),
   diagnostics (``DiagnosticsTable._compute``), rules (each rule's ``check``), figures (each
   rule's ``figures``), reports (each reporter's ``write`` and the terminal ``render``), other.
@@ -129,7 +129,7 @@ def instrumented(clock: PhaseClock):
         saved.append((owner, name, original))
         setattr(owner, name, clock.wrap(phase, original, drain))
 
-    patch(engine, "build_project", "reading")
+    patch(engine, "assemble", "reading")
     patch(engine, "_fingerprint", "hashing")
     patch(DiagnosticsTable, "_compute", "diagnostics")
     patch(terminal, "render", "reports")

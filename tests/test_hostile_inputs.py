@@ -175,6 +175,7 @@ CONFIG_TYPES = [
     ('max_table_rows = 1.5', "'max_table_rows' must be a whole"),
     ('page_size = 4', "'page_size' must be one of"),
     ('max_input_share = 2', "'max_input_share' must be a number above 0"),
+    ('lazy_share = 0', "'lazy_share' must be a number above 0"),
     ('policy = 3', "'policy' must be a string"),
     ('accepted = ["a.toml"]', "'accepted' must be a string"),
     ('rules = 1', "'rules' must be a table"), ('analysis = 1', "'analysis' must be an array"),

@@ -18,12 +18,14 @@ from __future__ import annotations
 import json
 import math
 import os
+import tempfile
 import time
 from pathlib import Path
 
 import numpy as np
 from hypothesis import HealthCheck, given, settings
 from hypothesis import strategies as st
+from xarray import testing as xr_testing
 
 from auditor.boundary import Boundary
 from auditor.config import ConfigError, check_rule_options, load_config
@@ -44,6 +46,7 @@ RULES = all_rules()
 #: Generated inputs per test; the total is at least 10,000 (issue 8).
 COUNTS = {
     "cmdstan": 2200,
+    "cmdstan_lazy": 300,
     "tables": 500,
     "rows": 300,
     "stan": 2400,
@@ -170,6 +173,41 @@ def test_cmdstan_reader_never_raises(tmp_path_factory, data):
         assert good in loaded.sources
 
 
+@given(data=st.data())
+@_settings("cmdstan_lazy")
+def test_cmdstan_reader_in_pieces_reads_what_the_whole_reader_reads(tmp_path_factory, data):
+    """The conversion of a run to a temporary Zarr store (draws larger than memory) never
+    raises, reports the same problems and gives the same draws as the whole-file reader, and
+    leaves nothing behind once cleaned up."""
+    from auditor.loaders.lazy import load_lazily
+
+    folder = tmp_path_factory.mktemp("csv")
+    systemp = tmp_path_factory.mktemp("systemp")
+    good, other = _small_run(folder)
+    _write(other, data.draw(_mutated(other.read_text())))
+    paths = [other] if data.draw(st.booleans()) else [good, other]
+    saved, tempfile.tempdir = tempfile.tempdir, str(systemp)
+    try:
+        with _Counted():
+            whole = load_draws(paths, Boundary(folder))
+            lazily, cleanup = load_lazily(paths, Boundary(folder))
+    finally:
+        tempfile.tempdir = saved
+    try:
+        assert sorted(map(str, lazily.problems)) == sorted(map(str, whole.problems))
+        assert (lazily.tree is None) == (whole.tree is None)
+        if whole.tree is not None:
+            assert lazily.sources == whole.sources
+            assert lazily.settings == whole.settings
+            assert sorted(lazily.tree.children) == sorted(whole.tree.children)
+            for group in whole.tree.children:
+                a = whole.tree[group].to_dataset()
+                b = lazily.tree[group].to_dataset().load()
+                xr_testing.assert_identical(a, b)
+    finally:
+        for action in cleanup:
+            action()
+    assert list(systemp.iterdir()) == []
 # --------------------------------------------------------------------------- draws tables
 
 

@@ -13,7 +13,7 @@ from collections.abc import Iterator
 import numpy as np
 import xarray as xr
 
-from auditor.diagnostics import quantity_labels
+from auditor.diagnostics import element_blocks, is_lazy, quantity_labels, read_flat
 
 _SAMPLE_DIMS = ("chain", "draw")
 
@@ -23,21 +23,28 @@ def _numeric(da: xr.DataArray) -> bool:
 
 
 def iter_quantities(
-    ds: xr.Dataset, one_based: bool = False
+    ds: xr.Dataset, one_based: bool = False, per_block: int = 256
 ) -> Iterator[tuple[str, np.ndarray]]:
-    """Yield ``(quantity, draws)`` for every numeric scalar quantity; draws are (chain, draw)."""
+    """Yield ``(quantity, draws)`` for every numeric scalar quantity; draws are (chain, draw).
+
+    Variables are read ``per_block`` elements at a time, so a consumer that stops early
+    never reads the rest of a posterior read lazily.
+    """
     for var in ds.data_vars:
         da = ds[var]
         if not _numeric(da):
             continue
-        values = da.transpose("chain", "draw", ...).values
-        flat = values.reshape(values.shape[0], values.shape[1], -1)
-        for k, label in enumerate(quantity_labels(str(var), da, one_based)):
-            yield label, flat[:, :, k].astype(float)
+        labels = quantity_labels(str(var), da, one_based)
+        for first, block in element_blocks(da, per_block):
+            for k in range(block.shape[2]):
+                yield labels[first + k], block[:, :, k].astype(float)
 
 
 def quantity_draws(ds: xr.Dataset, quantity: str, one_based: bool = False) -> np.ndarray | None:
-    """Draws of ``quantity`` as a (chain, draw) float array, or ``None`` when absent."""
+    """Draws of ``quantity`` as a (chain, draw) float array, or ``None`` when absent.
+
+    Only that element is read (a posterior read lazily is not loaded).
+    """
     var = quantity.split("[", 1)[0]
     if var not in ds.data_vars or not _numeric(ds[var]):
         return None
@@ -47,5 +54,5 @@ def quantity_draws(ds: xr.Dataset, quantity: str, one_based: bool = False) -> np
         k = labels.index(quantity)
     except ValueError:
         return None
-    values = da.transpose("chain", "draw", ...).values
-    return values.reshape(values.shape[0], values.shape[1], -1)[:, :, k].astype(float)
+    da = da.transpose("chain", "draw", ...)
+    return read_flat(da.data if is_lazy(da.data) else da.values, k, k + 1)[:, :, 0].astype(float)

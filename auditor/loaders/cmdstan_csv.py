@@ -25,10 +25,11 @@ from __future__ import annotations
 
 import hashlib
 import math
+import mmap
 import os
 import re
 from collections import Counter
-from collections.abc import Sequence
+from collections.abc import Callable, Sequence
 from concurrent.futures import Future, ThreadPoolExecutor
 from dataclasses import dataclass, field
 from pathlib import Path
@@ -234,6 +235,8 @@ def _parse_header_lines(path: Path, lines: Sequence[str]) -> CmdStanHeader | Non
 _HEAD_LIMIT = 64 * 1024 * 1024
 _HEAD_CHUNK = 1 << 20
 _BOM = b"\xef\xbb\xbf"
+#: With a file-backed store, its pages are released after about this many bytes of rows.
+RELEASE_BYTES = 128 * 2**20
 
 
 def _looks_binary(data: bytes | bytearray) -> bool:
@@ -541,19 +544,50 @@ class _Region:
 
 class _Store:
     """The shared ``(chain, row, column)`` array, grown when a file has more rows
-    than its header promised."""
+    than its header promised.
 
-    def __init__(self, n_chains: int, rows: int, ncol: int) -> None:
-        self.arr = np.empty((n_chains, max(rows, 1), ncol))
+    With ``scratch`` (a folder outside the project) the array is a shared mapping of a
+    raw float64 file there instead of memory, for runs larger than memory
+    (:mod:`auditor.loaders.cmdstan_lazy`): :meth:`release` hands the pages written so
+    far back to the page cache, so the process holds only what it touched since.
+    """
+
+    def __init__(self, n_chains: int, rows: int, ncol: int, scratch: Path | None = None) -> None:
+        self.scratch = scratch
+        self._maps: list[mmap.mmap] = []
+        self._generation = 0
+        self.arr = self._new((n_chains, max(rows, 1), ncol))
+
+    def _new(self, shape: tuple[int, int, int]) -> np.ndarray:
+        if self.scratch is None:
+            return np.empty(shape)
+        self._generation += 1
+        path = self.scratch / f"rows-{self._generation}.f64"
+        nbytes = max(8, 8 * math.prod(shape))
+        with open(path, "w+b") as fh:
+            # Reserve the blocks now: a full disk is an OSError here, not a fault
+            # (SIGBUS) later when a page of a sparse file is written.
+            os.posix_fallocate(fh.fileno(), 0, nbytes)
+            mm = mmap.mmap(fh.fileno(), nbytes)
+        path.unlink()  # the mapping keeps it until released; nothing is left behind
+        self._maps.append(mm)
+        return np.frombuffer(mm, dtype=np.float64, count=math.prod(shape)).reshape(shape)
 
     def ensure(self, rows: int, pending: list[_Region]) -> None:
         if rows <= self.arr.shape[1]:
             return
         for r in pending:  # nothing may write into the old array any more
             _finish(r)
-        new = np.empty((self.arr.shape[0], max(rows, 2 * self.arr.shape[1]), self.arr.shape[2]))
+        new = self._new((self.arr.shape[0], max(rows, 2 * self.arr.shape[1]),
+                         self.arr.shape[2]))
         new[:, : self.arr.shape[1]] = self.arr
         self.arr = new
+        self.release()
+
+    def release(self) -> None:
+        """Drop the file-backed pages from this process (they stay in the file)."""
+        for mm in self._maps:
+            mm.madvise(mmap.MADV_DONTNEED)
 
 
 def _finish(region: _Region) -> None:
@@ -598,6 +632,7 @@ def _read_rows(chain: _Chain, gate: Boundary, store: _Store, pool: ThreadPoolExe
     in_flight: list[_Region] = []
     line_no = (h.column_line or 0) + 1
     row = 0
+    since = 0  # bytes read since the file-backed pages were last released
     with gate.open(path) as fh:
         fh.seek(chain.head.body_offset)
         size = CHUNK
@@ -646,9 +681,18 @@ def _read_rows(chain: _Chain, gate: Boundary, store: _Store, pool: ThreadPoolExe
                 line_no += lines
                 row += lines
                 pos = end
+            since += n
+            if store.scratch is not None and since >= RELEASE_BYTES:
+                for r in in_flight:  # their rows must be written before the pages go
+                    _finish(r)
+                in_flight.clear()
+                store.release()
+                since = 0
         st = os.fstat(fh.fileno())
     for region in regions:
         _finish(region)
+    if store.scratch is not None:
+        store.release()
     chain.step_size = comments.step_size
     chain.metric = comments.metric
     chain.inv_metric = np.asarray(comments.diag, dtype=float) if comments.diag else None
@@ -1068,6 +1112,47 @@ def _workers(total_bytes: int) -> int:
     return max(1, min(cpus, 4, total_bytes // (8 * CHUNK)))
 
 
+@dataclass
+class Run:
+    """A run whose rows were read and checked, before its groups are made.
+
+    ``arr[:len(chains)]`` holds the kept chains in order; rows ``start`` to
+    ``start + warm`` are warmup, the next ``kept`` rows draws.
+    """
+
+    arr: np.ndarray
+    chains: list[_Chain]
+    columns: tuple[str, ...]
+    settings: SamplerSettings
+    layout: stan_names.Layout
+    warm: int
+    start: int
+    kept: int
+    problems: list[LoadProblem]
+    store: _Store
+
+    @property
+    def attrs(self) -> dict[str, str]:
+        attrs = {"inference_library": "CmdStan", "source_format": "cmdstan-csv"}
+        if self.settings.library_version:
+            attrs["inference_library_version"] = self.settings.library_version
+        return attrs
+
+    def rows(self, warmup: bool) -> np.ndarray:
+        """``(chain, draw, column)`` values of the warmup rows or of the draws."""
+        n = len(self.chains)
+        lo = self.start if warmup else self.start + self.warm
+        hi = self.start + self.warm if warmup else lo + self.kept
+        return self.arr[:n, lo:hi]
+
+
+GroupMaker = Callable[[Run, bool], tuple[xr.Dataset, "xr.Dataset | None"]]
+
+
+def _in_memory(run: Run, warmup: bool) -> tuple[xr.Dataset, xr.Dataset | None]:
+    return _group_datasets(run.rows(warmup), run.columns, run.settings.max_depth, run.layout)
+
+
 def load_cmdstan_csv(paths: Sequence[Path], gate: Boundary | None = None) -> Loaded:
     """Load CmdStan CSV files that are the chains of one run.
 
@@ -1091,6 +1176,19 @@ def load_cmdstan_csv(paths: Sequence[Path], gate: Boundary | None = None) -> Loa
         disagree with the majority are left out with an ``inconsistent-chains``
         problem.
     """
+    run = read_run(paths, gate)
+    if isinstance(run, Loaded):
+        return run
+    return run_groups(run, _in_memory)
+
+
+def read_run(paths: Sequence[Path], gate: Boundary | None = None,
+             scratch: Path | None = None) -> Run | Loaded:
+    """Read and check the rows of a run (everything but making its groups).
+
+    With ``scratch``, the rows go to a file-backed array in that folder (see
+    :class:`_Store`). Returns a :class:`Loaded` without a tree when nothing can be read.
+    """
     problems: list[LoadProblem] = []
     gate = gate or Boundary.unconfined()
     heads: list[_Head] = []
@@ -1110,7 +1208,7 @@ def load_cmdstan_csv(paths: Sequence[Path], gate: Boundary | None = None) -> Loa
     # small file costs nothing.
     fits = max(hd.size // (2 * ncol) + 1 for hd in heads)
     rows = min(max((p for p in promised if p is not None), default=1024), fits)
-    store = _Store(len(heads), rows, ncol)
+    store = _Store(len(heads), rows, ncol, scratch)
     chains = [_Chain(hd, slot) for slot, hd in enumerate(heads)]
     workers = _workers(sum(hd.size for hd in heads))
     read: list[_Chain] = []
@@ -1152,17 +1250,20 @@ def load_cmdstan_csv(paths: Sequence[Path], gate: Boundary | None = None) -> Loa
         if c.slot != k:
             arr[k] = arr[c.slot]
             c.slot = k
-    n = len(chains)
+    if scratch is not None:
+        store.release()
     first = chains[0]
-    warm, start = first.n_warmup, first.start
-    end = start + warm + first.n_kept
     layout = stan_names.layout([(j, c) for j, c in enumerate(columns) if not c.endswith("__")],
                                h.path, h.column_line, problems)
-    posterior, stats = _group_datasets(arr[:n, start + warm: end], columns, settings.max_depth,
-                                       layout)
-    attrs = {"inference_library": "CmdStan", "source_format": "cmdstan-csv"}
-    if settings.library_version:
-        attrs["inference_library_version"] = settings.library_version
+    return Run(arr=arr, chains=chains, columns=columns, settings=settings, layout=layout,
+               warm=first.n_warmup, start=first.start, kept=first.n_kept, problems=problems,
+               store=store)
+
+
+def run_groups(run: Run, make: GroupMaker) -> Loaded:
+    """The tree of a read run, its groups made by ``make(run, warmup)``."""
+    chains, attrs = run.chains, run.attrs
+    posterior, stats = make(run, False)
     posterior.attrs.update(attrs)
     posterior.attrs["adapted_step_size"] = [float(c.step_size) for c in chains]
     for phase in ("warm-up", "sampling"):
@@ -1174,9 +1275,8 @@ def load_cmdstan_csv(paths: Sequence[Path], gate: Boundary | None = None) -> Loa
     if stats is not None:
         stats.attrs.update(attrs)
         groups["sample_stats"] = stats
-    if warm:
-        w_post, w_stats = _group_datasets(arr[:n, start: start + warm], columns,
-                                          settings.max_depth, layout)
+    if run.warm:
+        w_post, w_stats = make(run, True)
         w_post.attrs.update(attrs)
         groups["warmup_posterior"] = w_post
         if w_stats is not None:
@@ -1184,8 +1284,8 @@ def load_cmdstan_csv(paths: Sequence[Path], gate: Boundary | None = None) -> Loa
             groups["warmup_sample_stats"] = w_stats
     tree = xr.DataTree.from_dict(groups)
     tree.attrs.update(attrs)
-    return Loaded(tree=tree, settings=settings, sources=[c.header.path for c in chains],
-                  problems=problems)
+    return Loaded(tree=tree, settings=run.settings, sources=[c.header.path for c in chains],
+                  problems=run.problems)
 
 
 class _NoPool:

@@ -54,5 +54,12 @@ def write(result: AuditResult, out_dir: Path) -> Path:
     """Write ``audit.html`` into ``out_dir`` and return its path."""
     out_dir.mkdir(parents=True, exist_ok=True)
     path = out_dir / FILENAME
-    path.write_text(render(result), encoding="utf-8", errors="backslashreplace", newline="\n")
+    # Written as the template produces it (the same text as render()), so the page is
+    # never held whole as one string.
+    view = build_view(result, figure_scale=SCREEN_FIGURE_SCALE)
+    template = environment().get_template(TEMPLATE)
+    with path.open("w", encoding="utf-8", errors="backslashreplace", newline="\n") as fh:
+        for piece in template.generate(v=view, print=False, page_size="A4",
+                                       stage_order=list(view.stage_order)):
+            fh.write(piece)
     return path

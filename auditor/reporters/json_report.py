@@ -20,6 +20,7 @@
 
 from __future__ import annotations
 
+import dataclasses
 import json
 import math
 from pathlib import Path
@@ -69,6 +70,25 @@ def finding_dict(f: Finding) -> dict[str, Any]:
     }
 
 
+def analysis_dict(a: Any) -> dict[str, Any]:
+    """JSON form of one analysis's result (an item of the report's ``analyses``)."""
+    return {
+        "name": a.name,
+        "verdict": a.verdict,
+        "program": a.program,
+        "sources": a.sources,
+        "chains": a.n_chains,
+        "draws_per_chain": a.n_draws,
+        "settings": json_safe(a.settings),
+        "coverage": json_safe(a.coverage),
+        "pairings": json_safe(a.pairings),
+        "loo": json_safe(a.loo),
+        "sensitivity": json_safe(a.sensitivity),
+        "diagnostics": json_safe(a.diagnostics),
+        "findings": [finding_dict(f) for f in a.findings],
+    }
+
+
 def to_dict(result: AuditResult) -> dict[str, Any]:
     """The whole report as plain data, in a fixed order."""
     return {
@@ -86,24 +106,7 @@ def to_dict(result: AuditResult) -> dict[str, Any]:
         "project_findings": [finding_dict(f) for f in sorted(result.project_findings,
                                                               key=Finding.sort_key)],
         "comparisons": json_safe(result.comparisons),
-        "analyses": [
-            {
-                "name": a.name,
-                "verdict": a.verdict,
-                "program": a.program,
-                "sources": a.sources,
-                "chains": a.n_chains,
-                "draws_per_chain": a.n_draws,
-                "settings": json_safe(a.settings),
-                "coverage": json_safe(a.coverage),
-                "pairings": json_safe(a.pairings),
-                "loo": json_safe(a.loo),
-                "sensitivity": json_safe(a.sensitivity),
-                "diagnostics": json_safe(a.diagnostics),
-                "findings": [finding_dict(f) for f in a.findings],
-            }
-            for a in result.analyses
-        ],
+        "analyses": [analysis_dict(a) for a in result.analyses],
         "inputs": [{"path": i.path, "sha256": i.sha256, "bytes": i.size} for i in result.inputs],
         "config": json_safe(result.config),
         "libraries": dict(sorted(result.libraries.items())),
@@ -111,8 +114,42 @@ def to_dict(result: AuditResult) -> dict[str, Any]:
 
 
 def write(result: AuditResult, out_dir: Path) -> Path:
-    """Write ``audit.json`` into ``out_dir``; same result, same bytes."""
+    """Write ``audit.json`` into ``out_dir``; same result, same bytes.
+
+    The analyses are encoded and written one at a time (the bytes of ``json.dumps`` of
+    :func:`to_dict` with ``indent=2``), so a project of many analyses never holds its whole
+    report, as data and as text, at once.
+    """
     path = out_dir / FILENAME
-    text = json.dumps(to_dict(result), indent=2, ensure_ascii=False, allow_nan=False)
-    path.write_text(text + "\n", encoding="utf-8", errors="backslashreplace")
+    options = {"indent": 2, "ensure_ascii": False, "allow_nan": False}
+    analyses = result.analyses
+    head = to_dict(dataclasses.replace(result, analyses=[]))
+    # The summary, gate and exit status count the analyses: take them from the whole result.
+    full = to_dict_summary(result)
+    head.update(full)
+    text = json.dumps(head, **options)
+    with path.open("w", encoding="utf-8", errors="backslashreplace") as fh:
+        if not analyses:
+            fh.write(text + "\n")
+            return path
+        before, after = text.split(_EMPTY_ANALYSES, 1)
+        fh.write(before + '\n  "analyses": [')
+        for k, a in enumerate(analyses):
+            item = json.dumps(analysis_dict(a), **options).replace("\n", "\n    ")
+            fh.write(("," if k else "") + "\n    " + item)
+        fh.write("\n  ],\n" + after + "\n")
     return path
+
+
+#: How ``json.dumps(..., indent=2)`` writes an empty ``analyses`` list among the top keys.
+_EMPTY_ANALYSES = '\n  "analyses": [],\n'
+
+
+def to_dict_summary(result: AuditResult) -> dict[str, Any]:
+    """The keys of :func:`to_dict` that depend on the analyses besides the list itself."""
+    return {
+        "gate": {"level": result.gate, "reached": result.gate_reached,
+                 "exit_status": result.exit_status, "new_only": result.gate_new_only},
+        "summary": {**result.counts(), "accepted": result.accepted_count,
+                    "analyses": len(result.analyses)},
+    }

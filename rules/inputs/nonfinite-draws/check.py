@@ -7,6 +7,7 @@ from collections.abc import Iterator
 import numpy as np
 
 from auditor.findings import Finding
+from auditor.rulekit import draws_blocks
 
 #: Groups of draws checked (sampler statistics such as a fixed_param run's NaN
 #: step size are no draws of the model).
@@ -44,23 +45,29 @@ def check(ctx) -> Iterator[Finding]:
             da = ds[var]
             if not np.issubdtype(da.dtype, np.floating) or "chain" not in da.dims:
                 continue
-            values = np.asarray(da.transpose("chain", "draw", ...).values)
-            n_draws = values.shape[0] * values.shape[1]
-            flat = values.reshape(n_draws, -1)
-            nan = np.isnan(flat).sum(axis=0)
-            inf = np.isinf(flat).sum(axis=0)
+            da = da.transpose("chain", "draw", ...)
+            n_draws = int(da.sizes["chain"]) * int(da.sizes["draw"])
+            # Counted block by block: a posterior read lazily is never loaded whole.
+            nans, infs = [], []
+            for block in draws_blocks(da):
+                flat = block.reshape(n_draws, -1)
+                nans.append(np.isnan(flat).sum(axis=0))
+                infs.append(np.isinf(flat).sum(axis=0))
+            if not nans:
+                continue
+            nan, inf = np.concatenate(nans), np.concatenate(infs)
             bad = np.flatnonzero(nan + inf >= least)
             if bad.size == 0:
                 continue
             dims = tuple(d for d in da.dims if d not in ("chain", "draw"))
             coords = {d: da.coords[d].values for d in dims if d in da.coords}
-            shape = values.shape[2:]
+            shape = da.shape[2:]
             worst = int(bad[np.argmax((nan + inf)[bad])])
             labels = [_label(str(var), dims, coords, np.unravel_index(k, shape) if shape else (),
                              one_based) for k in bad[:6]]
             label = _label(str(var), dims, coords,
                            np.unravel_index(worst, shape) if shape else (), one_based)
-            total = int(flat.shape[1])
+            total = int(nan.size)
             counts = f"{int(nan[worst])} NaN and {int(inf[worst])} infinite of {n_draws} draws"
             if total == 1:
                 message = f"{var} in {group} has {counts}"

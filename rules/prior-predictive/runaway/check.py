@@ -5,20 +5,36 @@ from __future__ import annotations
 import numpy as np
 
 from auditor.kernels.diagnostics import convergence
+from auditor.rulekit import draws_blocks
 
 
-def _largest(ds) -> list[tuple[str, float, np.ndarray]]:
+def _largest(ds) -> list[tuple[str, float, object]]:
+    """(name, largest magnitude, variable) of every draws variable; infinite when a draw is
+    not finite. Read block by block (prior draws read lazily are never loaded whole)."""
     out = []
     for name, da in ds.data_vars.items():
         if "chain" not in da.dims or "draw" not in da.dims:
             continue
-        arr = np.asarray(da.transpose("chain", "draw", ...).values, dtype=float)
-        finite = np.abs(arr[np.isfinite(arr)])
-        biggest = float(finite.max()) if finite.size else 0.0
-        if not np.all(np.isfinite(arr)):
-            biggest = float("inf")
-        out.append((str(name), biggest, arr))
+        biggest = 0.0
+        for block in draws_blocks(da):
+            arr = np.asarray(block, dtype=float)
+            if not np.all(np.isfinite(arr)):
+                biggest = float("inf")
+                break
+            if arr.size:
+                biggest = max(biggest, float(np.abs(arr).max()))
+        out.append((str(name), biggest, da))
     return out
+
+
+def _largest_rhat(da) -> float | None:
+    """The largest rank-normalized R-hat over the elements of a variable with finite draws."""
+    parts = [convergence(np.asarray(block, dtype=float), mcse_mean=False)["rhat_rank"]
+             for block in draws_blocks(da)]
+    if not parts:
+        return None
+    values = np.concatenate(parts)
+    return float(np.nanmax(values)) if np.isfinite(values).any() else None
 
 
 def check(ctx):
@@ -41,12 +57,10 @@ def check(ctx):
         return
     # The parameters first (they are the cause), the largest first.
     runaway.sort(key=lambda t: (t[0] != "prior", -t[2]))
-    group, name, big, arr = runaway[0]
+    group, name, big, da = runaway[0]
     rhat = None
-    if arr.shape[0] > 1 and arr.shape[1] >= 4 and np.all(np.isfinite(arr)):
-        values = convergence(arr.reshape(arr.shape[0], arr.shape[1], -1),
-                             mcse_mean=False)["rhat_rank"]
-        rhat = float(np.nanmax(values)) if np.isfinite(values).any() else None
+    if da.sizes["chain"] > 1 and da.sizes["draw"] >= 4 and np.isfinite(big):
+        rhat = _largest_rhat(da)
     listed = ", ".join(f"`{n}` ({b:.3g})" for _, n, b, _ in runaway[:6])
     drift = f"; the chains of `{name}` disagree (R-hat {rhat:.3g})" if rhat is not None else ""
     yield ctx.finding(
