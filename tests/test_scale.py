@@ -469,3 +469,38 @@ def test_reference_runs_converted_for_blocks_read_as_the_whole_reader(own_tempdi
                 action()
     assert compared >= 8
     assert list(own_tempdir.iterdir()) == []
+
+
+def test_a_converted_run_with_more_rows_than_promised_reads_as_the_whole_reader(tmp_path,
+                                                                                 own_tempdir):
+    """A header that promises fewer draws than the file holds makes the reader grow its
+    array: in the mapped file of a conversion too, with the same rows and problems."""
+    from auditor.boundary import Boundary
+    from auditor.loaders.lazy import load_lazily
+    from tests.tools.cmdstan_writer import write_run
+
+    rng = np.random.default_rng(7)
+    draws = 3000
+    project = tmp_path / "project"  # own_tempdir lies beside it, outside
+    paths = write_run(project / "fits", "fit", "m_model",
+                      {"mu": rng.normal(size=(2, draws)), "z": rng.normal(size=(2, draws, 4))},
+                      {"lp": rng.normal(size=(2, draws)), "divergent": np.zeros((2, draws)),
+                       "treedepth": np.full((2, draws), 3), "stepsize": np.full((2, draws), 0.4)})
+    for p in paths:
+        text = p.read_text()
+        assert f"num_samples = {draws}" in text
+        p.write_text(text.replace(f"num_samples = {draws}", "num_samples = 10"))
+    gate = Boundary(project)
+    whole = load_draws(paths, gate)
+    lazily, cleanup = load_lazily(paths, gate)
+    try:
+        assert any("promises" in str(p) for p in whole.problems)
+        assert sorted(map(str, lazily.problems)) == sorted(map(str, whole.problems))
+        for group in whole.tree.children:
+            xr.testing.assert_identical(whole.tree[group].to_dataset(),
+                                        lazily.tree[group].to_dataset().load())
+        assert whole.tree["posterior"].sizes["draw"] == draws
+    finally:
+        for action in cleanup:
+            action()
+    assert list(own_tempdir.iterdir()) == []

@@ -565,9 +565,7 @@ class _Store:
         path = self.scratch / f"rows-{self._generation}.f64"
         nbytes = max(8, 8 * math.prod(shape))
         with open(path, "w+b") as fh:
-            # Reserve the blocks now: a full disk is an OSError here, not a fault
-            # (SIGBUS) later when a page of a sparse file is written.
-            os.posix_fallocate(fh.fileno(), 0, nbytes)
+            reserve(fh.fileno(), nbytes)
             mm = mmap.mmap(fh.fileno(), nbytes)
         path.unlink()  # the mapping keeps it until released; nothing is left behind
         self._maps.append(mm)
@@ -582,12 +580,27 @@ class _Store:
                          self.arr.shape[2]))
         new[:, : self.arr.shape[1]] = self.arr
         self.arr = new
+        # The old mapping goes with the last view of it (its file was unlinked).
+        self._maps = self._maps[-1:]
         self.release()
 
     def release(self) -> None:
-        """Drop the file-backed pages from this process (they stay in the file)."""
-        for mm in self._maps:
-            mm.madvise(mmap.MADV_DONTNEED)
+        """Drop the file-backed pages from this process (they stay in the file); where the
+        system has no ``madvise`` (Windows) the pages stay until the mapping goes."""
+        if hasattr(mmap, "MADV_DONTNEED"):
+            for mm in self._maps:
+                mm.madvise(mmap.MADV_DONTNEED)
+
+
+def reserve(fd: int, nbytes: int) -> None:
+    """Reserve ``nbytes`` of disk for the file ``fd`` now, so that a full disk is an
+    :class:`OSError` here rather than a fault (SIGBUS) when a page of a sparse mapped
+    file is written later; where ``posix_fallocate`` is missing (macOS), the file is
+    only extended."""
+    if hasattr(os, "posix_fallocate"):
+        os.posix_fallocate(fd, 0, nbytes)
+    else:
+        os.ftruncate(fd, nbytes)
 
 
 def _finish(region: _Region) -> None:

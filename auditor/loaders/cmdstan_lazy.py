@@ -43,6 +43,7 @@ from auditor.loaders.cmdstan_csv import (
     _stats_dataset,
     load_cmdstan_csv,
     read_run,
+    reserve,
     run_groups,
 )
 from auditor.loaders.problems import Loaded, LoadProblem
@@ -166,7 +167,7 @@ def _zarr_groups(folder: Path, zarr, dask_array):  # noqa: ANN001, ANN202
         fd = os.open(path, os.O_RDWR | os.O_CREAT | os.O_EXCL, 0o600)
         try:
             if nbytes:
-                os.posix_fallocate(fd, 0, nbytes)  # a full disk is an OSError here
+                reserve(fd, nbytes)  # a full disk is an OSError here
             stats = _reorder(run, columns, fd, [j for j, _ in stat_cols])
         except BaseException:
             os.close(fd)
