@@ -11,10 +11,7 @@ from __future__ import annotations
 
 from typing import TYPE_CHECKING
 
-import numpy as np
-
-from auditor.figures.predictive import RANGE_FILL, plain_text
-from auditor.figures.render import ACCENT, INK, MUTED, figure, to_svg
+from auditor.figures.predictive import ecdf_difference_svg, plain_text
 from auditor.result import Figure
 
 if TYPE_CHECKING:
@@ -41,30 +38,15 @@ def sbc_ecdf_difference(test: SbcTest, *, fig_id: str, rule_id: str | None = Non
     Figure or None
         ``None`` when there is nothing finite to draw.
     """
-    x, ecdf = np.asarray(test.x, dtype=float), np.asarray(test.ecdf, dtype=float)
-    lower, upper = np.asarray(test.lower, dtype=float), np.asarray(test.upper, dtype=float)
-    if x.size < 2 or not all(np.all(np.isfinite(a)) for a in (x, ecdf, lower, upper)):
-        return None
-    diff = ecdf - x
-    outside = (ecdf > upper) | (ecdf < lower)
     level = f"{100 * (1 - test.alpha):.0f}%"
-    shown = plain_text(test.parameter)
-    with figure(height_in=3.0) as fig:
-        ax = fig.add_subplot()
-        ax.fill_between(x, lower - x, upper - x, color=RANGE_FILL, alpha=0.22, lw=0,
-                        label=f"{level} band of calibrated inference")
-        ax.axhline(0.0, color=MUTED, lw=0.8)
-        ax.plot(x, diff, color=INK, lw=1.5, label="rank ECDF minus uniform")
-        if outside.any():
-            ax.scatter(x[outside], diff[outside], s=20, color=ACCENT, zorder=3,
-                       edgecolors="white", linewidths=0.4,
-                       label=f"outside the band ({test.outside} of {x.size})")
-        ax.set_xlim(0.0, 1.0)
-        ax.set_xlabel("fractional rank of the true value among the posterior draws")
-        ax.set_ylabel("ECDF minus uniform")
-        ax.set_title(f"Simulation-based calibration of {shown}", loc="left", color=INK)
-        fig.legend(loc="outside lower center", ncols=3)
-        svg = to_svg(fig, fig_id)
+    drawn = ecdf_difference_svg(
+        test, fig_id=fig_id, band=f"{level} band of calibrated inference",
+        line="rank ECDF minus uniform",
+        xlabel="fractional rank of the true value among the posterior draws",
+        title=f"Simulation-based calibration of {plain_text(test.parameter)}")
+    if drawn is None:
+        return None
+    svg, n_points = drawn
     if test.bins:
         chi2_words = (f"The rank histogram's chi-square test over {test.bins} bins gives "
                       f"p = {test.chi2_p:.3g}.")
@@ -78,7 +60,7 @@ def sbc_ecdf_difference(test: SbcTest, *, fig_id: str, rule_id: str | None = Non
         "within each rank, fixed seed). The line is the share of these fractions at or below "
         "each point minus the share a uniform distribution would give; for calibrated "
         f"inference it stays inside the shaded {level} band everywhere at once. Here it leaves "
-        f"the band at {test.outside} of {x.size} points (marked), largest excursion "
+        f"the band at {test.outside} of {n_points} points (marked), largest excursion "
         f"{test.largest_gap:.3f}. {chi2_words} Reading the shape: above zero on the left and "
         "below on the right, the true values fall too often in the posteriors' tails "
         "(posteriors too narrow); the reverse, posteriors too wide; above zero throughout, the "

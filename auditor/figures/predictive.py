@@ -504,6 +504,39 @@ def statistic_distribution(
 # --- LOO-PIT ---------------------------------------------------------------------------
 
 
+def ecdf_difference_svg(test: Any, *, fig_id: str, band: str, line: str, xlabel: str,
+                        title: str) -> tuple[str, int] | None:
+    """An ECDF minus the uniform CDF inside its simultaneous band (after Säilynoja, Bürkner
+    & Vehtari 2022), the points outside marked: the SVG and the number of points.
+
+    ``test`` has ``x``, ``ecdf``, ``lower``, ``upper`` (arrays over the evaluation points)
+    and ``outside`` (how many points leave the band): a LOO-PIT test here, an SBC rank test
+    in :mod:`auditor.figures.calibration`. ``None`` when there is nothing finite to draw.
+    """
+    x, ecdf = np.asarray(test.x, dtype=float), np.asarray(test.ecdf, dtype=float)
+    lower, upper = np.asarray(test.lower, dtype=float), np.asarray(test.upper, dtype=float)
+    if x.size < 2 or not all(np.all(np.isfinite(a)) for a in (x, ecdf, lower, upper)):
+        return None
+    diff = ecdf - x
+    outside = (ecdf > upper) | (ecdf < lower)
+    with figure(height_in=3.0) as fig:
+        ax = fig.add_subplot()
+        ax.fill_between(x, lower - x, upper - x, color=RANGE_FILL, alpha=0.22, lw=0,
+                        label=band)
+        ax.axhline(0.0, color=MUTED, lw=0.8)
+        ax.plot(x, diff, color=INK, lw=1.5, label=line)
+        if outside.any():
+            ax.scatter(x[outside], diff[outside], s=20, color=ACCENT, zorder=3,
+                       edgecolors="white", linewidths=0.4,
+                       label=f"outside the band ({test.outside} of {x.size})")
+        ax.set_xlim(0.0, 1.0)
+        ax.set_xlabel(xlabel)
+        ax.set_ylabel("ECDF minus uniform")
+        ax.set_title(title, loc="left", color=INK)
+        fig.legend(loc="outside lower center", ncols=3)
+        return to_svg(fig, fig_id), int(x.size)
+
+
 def loo_pit_difference(
     quantity: str, test: PitTest, *, alpha: float, n_obs: int, randomized: bool,
     fig_id: str, rule_id: str | None,
@@ -514,30 +547,14 @@ def loo_pit_difference(
     points, ECDF and band; the points marked are those where the ECDF leaves the band,
     ``test.outside`` of them.
     """
-    x, ecdf = np.asarray(test.x, dtype=float), np.asarray(test.ecdf, dtype=float)
-    lower, upper = np.asarray(test.lower, dtype=float), np.asarray(test.upper, dtype=float)
-    if x.size < 2 or not all(np.all(np.isfinite(a)) for a in (x, ecdf, lower, upper)):
-        return None
-    diff = ecdf - x
-    outside = (ecdf > upper) | (ecdf < lower)
     level = f"{100 * (1 - alpha):.0f}%"
-    shown = plain_text(quantity)
-    with figure(height_in=3.0) as fig:
-        ax = fig.add_subplot()
-        ax.fill_between(x, lower - x, upper - x, color=RANGE_FILL, alpha=0.22, lw=0,
-                        label=f"{level} band of a calibrated model")
-        ax.axhline(0.0, color=MUTED, lw=0.8)
-        ax.plot(x, diff, color=INK, lw=1.5, label="LOO-PIT ECDF minus uniform")
-        if outside.any():
-            ax.scatter(x[outside], diff[outside], s=20, color=ACCENT, zorder=3,
-                       edgecolors="white", linewidths=0.4,
-                       label=f"outside the band ({test.outside} of {x.size})")
-        ax.set_xlim(0.0, 1.0)
-        ax.set_xlabel("LOO-PIT value")
-        ax.set_ylabel("ECDF minus uniform")
-        ax.set_title(f"LOO-PIT of {shown}", loc="left", color=INK)
-        fig.legend(loc="outside lower center", ncols=3)
-        svg = to_svg(fig, fig_id)
+    drawn = ecdf_difference_svg(
+        test, fig_id=fig_id, band=f"{level} band of a calibrated model",
+        line="LOO-PIT ECDF minus uniform", xlabel="LOO-PIT value",
+        title=f"LOO-PIT of {plain_text(quantity)}")
+    if drawn is None:
+        return None
+    svg, n_points = drawn
     randomized_note = (", randomized within the jumps of the discrete outcome"
                        if randomized else "")
     caption = (
@@ -546,7 +563,7 @@ def loo_pit_difference(
         f"by Pareto smoothed importance sampling{randomized_note}). The line is the share of "
         "these values at or below each point minus the share a uniform distribution "
         f"would give; for a calibrated model it stays inside the shaded {level} band "
-        f"everywhere at once. Here it leaves the band at {test.outside} of {x.size} points "
+        f"everywhere at once. Here it leaves the band at {test.outside} of {n_points} points "
         f"(marked), largest excursion {test.largest_gap:.3f}. Reading the shape: above zero "
         "on the left and below on the right, predictive distributions too narrow; the "
         "reverse, too wide; below zero throughout, the model predicts too low; above zero "
