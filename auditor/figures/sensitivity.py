@@ -9,11 +9,17 @@ conflict (both above), strong prior or weak likelihood (prior above only), data-
 
 from __future__ import annotations
 
+from typing import TYPE_CHECKING
+
 import numpy as np
 
 from auditor.figures.predictive import plain_text
 from auditor.figures.render import ACCENT, CHAIN_COLORS, INK, MUTED, figure, to_svg
+from auditor.figures.sampling import slug
 from auditor.result import Figure
+
+if TYPE_CHECKING:
+    from auditor.rules_api import RuleContext
 
 #: Parameters labelled at most (the most sensitive to the prior first).
 MAX_LABELS = 12
@@ -59,3 +65,16 @@ def sensitivity_figure(quantities: list[str], prior: np.ndarray, likelihood: np.
                  f"({int(conflict.sum())} here), the prior alone a strong prior or a weak "
                  f"likelihood ({int(strong.sum())} here)."),
         rule_id=rule_id)
+
+
+def analysis_sensitivity_figures(ctx: RuleContext) -> list[Figure]:
+    """The figures of the rules that read the power-scaling table (prior-dominated,
+    prior-data conflict): the analysis's one sensitivity figure, from the same table the
+    findings read, under one id (a report shows it once when both rules made it)."""
+    power = ctx.sensitivity.power if ctx.sensitivity is not None else None
+    if power is None or int(ctx.options.get("max_figures", 4)) < 1:
+        return []
+    fig = sensitivity_figure(power.quantities, power.prior, power.likelihood,
+                             float(ctx.thresholds["threshold"]),
+                             fig_id=slug("sensitivity", ctx.analysis.name), rule_id=ctx.rule.id)
+    return [fig] if fig is not None else []
