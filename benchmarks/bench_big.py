@@ -39,14 +39,7 @@ HERE = Path(__file__).resolve().parent
 ROOT = HERE.parent
 sys.path.insert(0, str(ROOT))
 
-
-def _status(key: str) -> float:
-    """A ``/proc/self/status`` entry in MB (Linux)."""
-    with open("/proc/self/status", encoding="ascii") as fh:
-        for line in fh:
-            if line.startswith(key + ":"):
-                return int(line.split()[1]) / 1024
-    return float("nan")
+from cli_child import status_mb, timed_audit  # noqa: E402  (this folder)
 
 
 def _block(chains: int, draws: int, first: int, count: int, total: int) -> np.ndarray:
@@ -138,25 +131,13 @@ def child(project: Path, out: Path, reports: str) -> None:
     import dask.array  # noqa: F401
     import zarr  # noqa: F401
 
-    import auditor.cli  # noqa: F401  (imported before the RSS reading)
-    import auditor.engine  # noqa: F401
-    import auditor.loaders.lazy  # noqa: F401
-    import auditor.reporters  # noqa: F401
-    from auditor.cli import main as cli_main
+    import auditor.loaders.lazy  # noqa: F401  (imported before the RSS reading)
 
-    rss_before = _status("VmRSS")
-    argv = ["audit", str(project), "--out", str(out), "--quiet"]
-    for fmt in reports.split(","):
-        argv += ["--report", fmt.strip()]
-    with contextlib.redirect_stdout(io.StringIO()):
-        t0 = time.perf_counter()
-        status = cli_main(argv)
-        elapsed = time.perf_counter() - t0
-    report = json.loads((out / "audit.json").read_text())
+    status, elapsed, rss_before, report = timed_audit(project, out, reports)
     (analysis,) = report["analyses"]
     print(json.dumps({
         "status": status, "t_audit_s": elapsed, "rss_before_mb": rss_before,
-        "peak_rss_mb": _status("VmHWM"), "rows": len(analysis["diagnostics"]),
+        "peak_rss_mb": status_mb("VmHWM"), "rows": len(analysis["diagnostics"]),
         "rules_hit": sorted({f["rule"] for f in analysis["findings"]}),
         "rule_failed": [f["message"] for f in analysis["findings"]
                         if f["rule"] == "inputs.rule-failed"][:3],

@@ -23,7 +23,6 @@ largest and the smallest size given (the keys keep their names).
 from __future__ import annotations
 
 import argparse
-import contextlib
 import io
 import json
 import os
@@ -39,6 +38,8 @@ HERE = Path(__file__).resolve().parent
 ROOT = HERE.parent
 sys.path.insert(0, str(ROOT))
 
+from cli_child import status_mb, timed_audit  # noqa: E402  (this folder)
+
 from tests.tools.cmdstan_writer import HEADER  # noqa: E402
 
 PROGRAM = """data {
@@ -53,15 +54,6 @@ model {
 """
 STATS = ("lp__", "accept_stat__", "stepsize__", "treedepth__", "n_leapfrog__", "divergent__",
          "energy__")
-
-
-def _status(key: str) -> float:
-    """A ``/proc/self/status`` entry in MB (Linux)."""
-    with open("/proc/self/status", encoding="ascii") as fh:
-        for line in fh:
-            if line.startswith(key + ":"):
-                return int(line.split()[1]) / 1024
-    return float("nan")
 
 
 def write_run(folder: Path, stem: str, rng: np.random.Generator, chains: int, draws: int,
@@ -121,20 +113,7 @@ def write_projects(base: Path, sizes: list[int], chains: int, draws: int,
 
 def child(project: Path, out: Path, reports: str) -> None:
     """Audit ``project`` through the CLI entry point; print one JSON line with time and memory."""
-    import auditor.cli  # noqa: F401  (imported before the RSS reading: not the audit's cost)
-    import auditor.engine  # noqa: F401
-    import auditor.reporters  # noqa: F401
-    from auditor.cli import main as cli_main
-
-    rss_before = _status("VmRSS")
-    argv = ["audit", str(project), "--out", str(out), "--quiet"]
-    for fmt in reports.split(","):
-        argv += ["--report", fmt.strip()]
-    with contextlib.redirect_stdout(io.StringIO()):
-        t0 = time.perf_counter()
-        status = cli_main(argv)
-        elapsed = time.perf_counter() - t0
-    report = json.loads((out / "audit.json").read_text())
+    status, elapsed, rss_before, report = timed_audit(project, out, reports)
     failed = [f["message"] for a in report["analyses"] for f in a["findings"]
               if f["rule"] == "inputs.rule-failed"]
     # What made the exit status 1 (error-level findings, by rule and analyses hit).
@@ -143,7 +122,7 @@ def child(project: Path, out: Path, reports: str) -> None:
         for rule in sorted({f["rule"] for f in a["findings"] if f.get("severity") == "error"}):
             errors[rule] = errors.get(rule, 0) + 1
     print(json.dumps({"status": status, "t_audit_s": elapsed, "rss_before_mb": rss_before,
-                      "peak_rss_mb": _status("VmHWM"), "analyses": len(report["analyses"]),
+                      "peak_rss_mb": status_mb("VmHWM"), "analyses": len(report["analyses"]),
                       "rule_failed": failed[:3], "errors": errors}))
 
 
